@@ -1,0 +1,32 @@
+# Two commands set everything up on a fresh machine: `make demo` and `make test`.
+VENV ?= .venv
+PY := $(VENV)/bin/python
+STAMP := $(VENV)/.installed
+
+.PHONY: demo test test-fast lint bench clean
+
+$(STAMP): pyproject.toml
+	python3 -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+	$(PY) -m pip install --quiet -e ".[test]"
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(VENV)/bin/tutti demo
+
+test: $(STAMP)
+	$(VENV)/bin/ruff check .
+	OMP_NUM_THREADS=1 $(PY) -m pytest -q -p no:cacheprovider
+
+test-fast: $(STAMP)
+	OMP_NUM_THREADS=1 $(PY) -m pytest -q -p no:cacheprovider -m "not slow"
+
+lint: $(STAMP)
+	$(VENV)/bin/ruff check .
+	$(VENV)/bin/ruff format --check .
+
+bench: $(STAMP)
+	OMP_NUM_THREADS=1 $(PY) benchmarks/throughput.py
+
+clean:
+	rm -rf $(VENV) .pytest_cache build *.egg-info

@@ -1,0 +1,344 @@
+"""The ``tutti`` command: argument parsing only; the work is done by the client."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+from pathlib import Path
+from typing import Any
+
+from service.errors import EnsembleSearchError
+
+EPILOG = "Set TUTTI_REDIS_URL (or --redis-url) to share one Redis between machines."
+
+
+def _client(args: argparse.Namespace) -> Any:
+    from service.client import Client
+
+    return Client(url=args.redis_url, prefix=args.prefix)
+
+
+def _parse_value(text: str) -> Any:
+    try:
+        return json.loads(text)
+    except ValueError:
+        return text
+
+
+def cmd_submit(args: argparse.Namespace) -> int:
+    fields: dict[str, Any] = {"target": args.target}
+    for name in (
+        "task",
+        "metric",
+        "folds",
+        "max_trials",
+        "wall_seconds",
+        "trial_timeout",
+        "seed",
+        "parallelism",
+        "holdout",
+        "group_column",
+        "order_column",
+        "name",
+    ):
+        value = getattr(args, name)
+        if value is not None:
+            fields[name] = value
+    if args.families:
+        fields["families"] = [f.strip() for f in args.families.split(",") if f.strip()]
+    for item in args.set or []:
+        key, _, value = item.partition("=")
+        if not _:
+            raise SystemExit(f"--set {item!r}: use FIELD=VALUE, e.g. --set library_size=8")
+        fields[key.strip()] = _parse_value(value)
+    client = _client(args)
+    job = client.submit(args.data, **fields)
+    print(job.id)
+    if args.wait:
+        job.wait(progress=True)
+        _print_board(job.leaderboard(), limit=10)
+    return 0
+
+
+def _fmt(value: Any, digits: int = 4) -> str:
+    if value is None or (isinstance(value, float) and value != value):
+        return "—"
+    if isinstance(value, float):
+        return f"{value:.{digits}f}"
+    return str(value)
+
+
+def _print_table(rows: list[list[str]], header: list[str]) -> None:
+    widths = [
+        max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)
+    ]
+    print("  ".join(h.ljust(w) for h, w in zip(header, widths, strict=True)))
+    print("  ".join("─" * w for w in widths))
+    for r in rows:
+        print("  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)))
+
+
+def cmd_status(args: argparse.Namespace) -> int:
+    from service.client import _fmt_seconds
+
+    client = _client(args)
+    jobs = [client.job(args.job)] if args.job else client.jobs()
+    rows = []
+    for job in jobs:
+        st = job.status()
+        rows.append(
+            [
+                st["job"],
+                st["state"],
+                f"{st['trials_done']}/{st['budget']}",
+                str(st["failed"]),
+                f"{st['metric']} {_fmt(st['best'])}",
+                _fmt_seconds(st["elapsed"]),
+                _fmt_seconds(st["eta"]) if st["eta"] is not None else "—",
+                st.get("reason") or st.get("stop_reason") or "",
+            ]
+        )
+    if args.json:
+        print(json.dumps([j.status() for j in jobs], indent=2, default=str))
+        return 0
+    if not rows:
+        print("no jobs yet: submit one with `tutti submit data.csv --target COLUMN`")
+        return 0
+    _print_table(rows, ["job", "state", "trials", "failed", "best", "elapsed", "left", "note"])
+    return 0
+
+
+def _print_board(board: Any, limit: int | None = None) -> None:
+    metric = board.attrs.get("metric", "score")
+    print(f"metric: {metric} ({board.attrs.get('direction', '')})")
+    rows = []
+    for _, r in board.head(limit).iterrows() if limit else board.iterrows():
+        rows.append(
+            [
+                str(r["rank"]),
+                str(r["candidate"]),
+                str(r["family"]),
+                str(r["members"])[:40],
+                _fmt(r[metric]),
+                _fmt(r[f"{metric}_std"]),
+                _fmt(r["fit_seconds"], 2),
+                _fmt(r["predict_ms_per_1000"], 1),
+            ]
+        )
+    _print_table(
+        rows, ["rank", "candidate", "family", "members", metric, "± std", "fit s", "predict ms/1k"]
+    )
+
+
+def cmd_leaderboard(args: argparse.Namespace) -> int:
+    board = _client(args).job(args.job).leaderboard()
+    if args.json:
+        out = {
+            "metric": board.attrs.get("metric"),
+            "direction": board.attrs.get("direction"),
+            "rows": json.loads(board.to_json(orient="records")),
+        }
+        print(json.dumps(out, indent=2))
+    else:
+        _print_board(board, limit=args.limit)
+    return 0
+
+
+def cmd_export(args: argparse.Namespace) -> int:
+    path = _client(args).job(args.job).export(args.output)
+    print(f"wrote {path} (+ {path.name}.json)")
+    return 0
+
+
+def cmd_predict(args: argparse.Namespace) -> int:
+    import numpy as np
+    import pandas as pd
+
+    from service.artifacts import read_export
+    from service.config import Settings
+    from service.data import read_table
+
+    model, meta = read_export(Path(args.model), key=Settings.from_env().artifact_key)
+    frame = read_table(args.data)
+    pred = model.predict(frame)
+    out = pd.DataFrame({"prediction": pred})
+    if hasattr(model, "predict_proba") and meta.get("task") != "regression":
+        proba = np.asarray(model.predict_proba(frame))
+        for j, c in enumerate(model.classes_):
+            out[f"proba_{c}"] = proba[:, j]
+    if args.output:
+        out.to_csv(args.output, index=False)
+        print(f"wrote {len(out)} predictions to {args.output}")
+    else:
+        out.to_csv(sys.stdout, index=False)
+    return 0
+
+
+def cmd_cancel(args: argparse.Namespace) -> int:
+    changed = _client(args).job(args.job).cancel()
+    print(f"{args.job}: {'cancelled' if changed else 'already cancelled'}")
+    return 0
+
+
+def cmd_logs(args: argparse.Namespace) -> int:
+    for line in _client(args).job(args.job).logs()[-args.tail :]:
+        print(line)
+    return 0
+
+
+def cmd_delete(args: argparse.Namespace) -> int:
+    n = _client(args).job(args.job).delete()
+    print(f"deleted {args.job} ({n} keys)")
+    return 0
+
+
+def cmd_server(args: argparse.Namespace) -> int:
+    from service.config import Settings
+    from service.server import EmbeddedServer
+
+    server = EmbeddedServer(Settings.from_env().home)
+    if args.action == "status":
+        st = server.status()
+        print(json.dumps(st, indent=2))
+        return 0
+    if args.action == "start":
+        print(server.ensure_running())
+        return 0
+    stopped = server.stop()
+    print("stopped" if stopped else "not running")
+    return 0
+
+
+def cmd_worker(args: argparse.Namespace, rest: list[str]) -> int:
+    argv = [sys.executable, "-m", "workers", *rest]
+    os.execv(sys.executable, argv)
+    return 0  # pragma: no cover
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from service.demo import run_demo
+
+    return run_demo(
+        trials=args.trials,
+        seconds=args.seconds,
+        processes=args.processes,
+        redis_url=args.redis_url,
+        prefix=args.prefix,
+    )
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="tutti",
+        description="Ensemble search on CPU workers through a Redis queue.",
+        epilog=EPILOG,
+    )
+    p.add_argument(
+        "--redis-url",
+        default=None,
+        help="Redis URL (default TUTTI_REDIS_URL or the embedded server)",
+    )
+    p.add_argument("--prefix", default=None, help="key prefix (default tutti)")
+    sub = p.add_subparsers(dest="command", required=True)
+
+    s = sub.add_parser("submit", help="submit a search job from a CSV or Parquet file")
+    s.add_argument("data")
+    s.add_argument("--target", required=True)
+    s.add_argument("--task", choices=["auto", "binary", "multiclass", "regression"])
+    s.add_argument("--metric")
+    s.add_argument("--folds", type=int)
+    s.add_argument("--max-trials", dest="max_trials", type=int)
+    s.add_argument("--wall-seconds", dest="wall_seconds", type=float)
+    s.add_argument("--trial-timeout", dest="trial_timeout", type=float)
+    s.add_argument("--families", help="comma-separated subset, e.g. boosting,bagging")
+    s.add_argument("--seed", type=int)
+    s.add_argument("--parallelism", type=int, help="search shards (≈ worker processes to use)")
+    s.add_argument("--holdout", type=float)
+    s.add_argument("--group-column", dest="group_column")
+    s.add_argument("--order-column", dest="order_column")
+    s.add_argument("--name")
+    s.add_argument(
+        "--set", action="append", metavar="FIELD=VALUE", help="any other spec field (JSON value)"
+    )
+    s.add_argument("--wait", action="store_true", help="follow progress, then print the board")
+    s.set_defaults(func=cmd_submit)
+
+    s = sub.add_parser("status", help="list jobs, or show one")
+    s.add_argument("job", nargs="?")
+    s.add_argument("--json", action="store_true")
+    s.set_defaults(func=cmd_status)
+
+    s = sub.add_parser("leaderboard", help="a job's candidates, best first")
+    s.add_argument("job")
+    s.add_argument("--json", action="store_true")
+    s.add_argument("--limit", type=int, default=None)
+    s.set_defaults(func=cmd_leaderboard)
+
+    s = sub.add_parser("export", help="write a job's best pipeline to a skops file")
+    s.add_argument("job")
+    s.add_argument("-o", "--output", required=True)
+    s.set_defaults(func=cmd_export)
+
+    s = sub.add_parser("predict", help="predict a CSV/Parquet file with an exported pipeline")
+    s.add_argument("model")
+    s.add_argument("data")
+    s.add_argument("-o", "--output")
+    s.set_defaults(func=cmd_predict)
+
+    for name, func, text in (
+        ("cancel", cmd_cancel, "stop a job (best-so-far is kept)"),
+        ("delete", cmd_delete, "remove a job and all its data"),
+    ):
+        s = sub.add_parser(name, help=text)
+        s.add_argument("job")
+        s.set_defaults(func=func)
+
+    s = sub.add_parser("logs", help="a job's worker log lines and failure tracebacks")
+    s.add_argument("job")
+    s.add_argument("--tail", type=int, default=200)
+    s.set_defaults(func=cmd_logs)
+
+    s = sub.add_parser("server", help="the embedded Redis server")
+    s.add_argument("action", choices=["status", "start", "stop"])
+    s.set_defaults(func=cmd_server)
+
+    s = sub.add_parser(
+        "worker", help="run worker processes (same as python -m workers)", add_help=False
+    )
+    s.set_defaults(func=None)
+
+    s = sub.add_parser("demo", help="run the demo search on generated data")
+    s.add_argument("--trials", type=int, default=40)
+    s.add_argument("--seconds", type=float, default=120.0)
+    s.add_argument("--processes", type=int, default=2)
+    s.set_defaults(func=cmd_demo)
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    parser = build_parser()
+    # `tutti worker …` hands every following option to the worker launcher untouched
+    if "worker" in argv:
+        i = argv.index("worker")
+        head, rest = argv[:i], argv[i + 1 :]
+        args = parser.parse_args([*head, "status"])
+        if args.redis_url and "--redis-url" not in rest:
+            rest = ["--redis-url", args.redis_url, *rest]
+        if args.prefix and "--prefix" not in rest:
+            rest = ["--prefix", args.prefix, *rest]
+        return cmd_worker(args, rest)
+    args = parser.parse_args(argv)
+    try:
+        return int(args.func(args) or 0)
+    except EnsembleSearchError as exc:
+        print(f"tutti: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,414 @@
+"""Client and Job: submit searches, follow them, read the leaderboard, take the best pipeline."""
+
+from __future__ import annotations
+
+import json
+import secrets
+import sys
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from service import data as tables
+from service.artifacts import load_pipeline, write_export
+from service.config import Settings
+from service.connection import connect, resolve_url
+from service.errors import ArtifactError, JobStateError
+from service.keys import Keys, check_id
+from service.queue import TaskQueue
+from service.spec import LOWER_IS_BETTER, Metric, SearchSpec, parse_spec
+from service.store import JobState, JobStore
+
+SHARD_TIMEOUT_SLACK = 600.0
+
+
+def _new_job_id() -> str:
+    return f"{time.strftime('%Y%m%d-%H%M%S')}-{secrets.token_hex(3)}"
+
+
+def _fmt_seconds(s: float) -> str:
+    s = max(int(s), 0)
+    return (
+        f"{s // 3600:d}:{s % 3600 // 60:02d}:{s % 60:02d}"
+        if s >= 3600
+        else f"{s // 60:02d}:{s % 60:02d}"
+    )
+
+
+class Client:
+    """Entry point of the Python API.
+
+    Args:
+        url: Redis URL shared by clients and workers; default ``TUTTI_REDIS_URL`` or, when
+            unset, the embedded server under ``TUTTI_HOME`` (started on first use).
+        prefix: key prefix (default ``TUTTI_PREFIX`` or ``tutti``).
+        home: data directory of the embedded server.
+    """
+
+    def __init__(
+        self, url: str | None = None, *, prefix: str | None = None, home: str | Path | None = None
+    ) -> None:
+        self.settings = Settings.from_env(redis_url=url, prefix=prefix, home=home)
+        self.url = resolve_url(self.settings)
+        self.keys = Keys(self.settings.prefix)
+        self.redis = connect(self.url)
+        self.store = JobStore(self.redis, self.keys)
+        self.queue = TaskQueue(self.redis, self.keys)
+
+    # ------------------------------------------------------------------ submit
+    def submit(
+        self,
+        data: pd.DataFrame | str | Path,
+        spec: SearchSpec | dict[str, Any] | None = None,
+        *,
+        upload_progress: Callable[[int, int], None] | None = None,
+        **fields: Any,
+    ) -> Job:
+        """Validate spec and table, store them and queue the search.
+
+        ``client.submit(df, target="y", max_trials=60)`` and
+        ``client.submit(df, spec=SearchSpec(target="y"))`` are equivalent; CSV and Parquet
+        paths work in place of a DataFrame.
+
+        Raises:
+            InvalidSpecError: a spec field breaks a rule (every problem listed).
+            InvalidDataError: the table cannot be searched as it is.
+            Nothing is stored or enqueued when either is raised.
+        """
+        parsed = parse_spec(spec, **fields)
+        frame = tables.read_table(data)
+        prepared = tables.prepare(frame, parsed)
+        blob = tables.encode(prepared.frame)
+        tables.check_size(len(blob), self.settings.max_upload_bytes)
+        digest = tables.digest(blob)
+        job_id = _new_job_id()
+        self.store.put_data(digest, blob, progress=upload_progress)
+        del blob
+        resolved = prepared.spec
+        record = {
+            "spec": resolved.to_json(),
+            "data": digest,
+            "task": prepared.task,
+            "schema": prepared.schema,
+            "classes": list(prepared.classes),
+            "columns": {
+                "numeric": list(prepared.numeric_columns),
+                "categorical": list(prepared.categorical_columns),
+                "high_cardinality": list(prepared.high_cardinality_columns),
+            },
+            "summary": tables.summary(prepared),
+            "warnings": list(prepared.warnings),
+            "dropped": dict(prepared.dropped),
+            "name": resolved.name or "",
+        }
+        self.store.create_job(job_id, record, shards=resolved.parallelism)
+        timeout = self.settings.shard_seconds + resolved.trial_timeout + SHARD_TIMEOUT_SLACK
+        for shard in range(resolved.parallelism):
+            self.queue.enqueue_shard(job_id, shard, timeout=timeout)
+        return Job(self, job_id)
+
+    # ------------------------------------------------------------------ lookup
+    def job(self, job_id: str) -> Job:
+        """Handle of an existing job (JobNotFoundError if there is none)."""
+        self.store.job(check_id(job_id))
+        return Job(self, job_id)
+
+    def jobs(self) -> list[Job]:
+        return [Job(self, j) for j in self.store.job_ids()]
+
+    def status(self) -> pd.DataFrame:
+        """One row per job: state, progress, best score, failures, elapsed."""
+        rows = [j.status() for j in self.jobs()]
+        return pd.DataFrame(rows)
+
+    # ------------------------------------------------------------------ local workers
+    def start_workers(
+        self, processes: int = 2, *, burst: bool = True, log_path: str | Path | None = None
+    ) -> Any:
+        """Start ``python -m workers`` on this machine against this client's store."""
+        import subprocess
+
+        cmd = [
+            sys.executable,
+            "-m",
+            "workers",
+            "--processes",
+            str(processes),
+            "--redis-url",
+            self.url,
+            "--prefix",
+            self.settings.prefix,
+        ]
+        if burst:
+            cmd.append("--burst")
+        out = open(log_path, "ab") if log_path else subprocess.DEVNULL  # noqa: SIM115
+        return subprocess.Popen(cmd, stdout=out, stderr=subprocess.STDOUT)
+
+    def close(self) -> None:
+        self.redis.close()
+
+
+class Job:
+    """A search job in the store (any machine that reaches the same Redis sees the same)."""
+
+    def __init__(self, client: Client, job_id: str) -> None:
+        self.client = client
+        self.id = job_id
+
+    def __repr__(self) -> str:
+        return f"Job({self.id!r})"
+
+    @property
+    def store(self) -> JobStore:
+        return self.client.store
+
+    def record(self) -> dict[str, Any]:
+        return self.store.job(self.id)
+
+    def spec(self) -> SearchSpec:
+        return SearchSpec.model_validate(self.record()["spec"])
+
+    # ------------------------------------------------------------------ progress
+    def status(self) -> dict[str, Any]:
+        """State, trials done / budget, best score (natural sign), failures, elapsed seconds."""
+        rec = self.record()
+        spec = SearchSpec.model_validate(rec["spec"])
+        metric = Metric(spec.metric) if spec.metric else None
+        done = int(rec.get("n_complete", 0) or 0) + int(rec.get("n_pruned", 0) or 0)
+        best = self.store.best_score(self.id)
+        natural = None
+        if best is not None and metric is not None:
+            natural = -best if metric in LOWER_IS_BETTER else best
+        start = rec.get("started_at")
+        end = rec.get("finalized_at") or (time.time() if start else None)
+        elapsed = (end - start) if start and end else 0.0
+        eta = None
+        if start and done and JobState(rec["state"]) is JobState.RUNNING:
+            per = elapsed / done
+            left_trials = (spec.max_trials - done) * per
+            limits = [left_trials]
+            if spec.wall_seconds:
+                limits.append(start + spec.wall_seconds - time.time())
+            eta = max(min(limits), 0.0)
+        return {
+            "job": self.id,
+            "name": rec.get("name") or "",
+            "state": rec["state"],
+            "task": rec.get("task"),
+            "metric": metric.value if metric else None,
+            "trials_done": done,
+            "budget": spec.max_trials,
+            "complete": int(rec.get("n_complete", 0) or 0),
+            "pruned": int(rec.get("n_pruned", 0) or 0),
+            "failed": int(rec.get("n_failed", 0) or 0),
+            "best": natural,
+            "elapsed": elapsed,
+            "eta": eta,
+            "stop_reason": rec.get("stop_reason"),
+            "reason": rec.get("reason"),
+        }
+
+    @property
+    def state(self) -> JobState:
+        return self.store.state(self.id)
+
+    def wait(
+        self,
+        *,
+        progress: bool = False,
+        timeout: float | None = None,
+        poll: float = 1.0,
+        stream: Any = None,
+    ) -> dict[str, Any]:
+        """Block until the job is final; with ``progress`` draw a one-line progress bar.
+
+        Raises:
+            TimeoutError: ``timeout`` seconds passed first.
+        """
+        stream = stream or sys.stderr
+        tty = bool(getattr(stream, "isatty", lambda: False)())
+        end = None if timeout is None else time.monotonic() + timeout
+        last, last_at = "", 0.0
+        while True:
+            st = self.status()
+            final = JobState(st["state"]).terminal and (
+                st["state"] != JobState.CANCELLED.value
+                or self.record().get("committed_epoch") is not None
+            )
+            if progress:
+                line = progress_line(st)
+                if tty:
+                    stream.write("\r" + line)
+                elif (
+                    line.split(" · ")[:2] != last.split(" · ")[:2]
+                    or final
+                    or (time.monotonic() - last_at > 30)
+                ):
+                    stream.write(line.rstrip() + "\n")  # a log-friendly line per change
+                    last_at = time.monotonic()
+                last = line
+                stream.flush()
+            if final:
+                if progress and tty:
+                    stream.write("\n")
+                return st
+            if end is not None and time.monotonic() > end:
+                if progress and tty:
+                    stream.write("\n")
+                raise TimeoutError(f"job {self.id} still {st['state']} after {timeout} s")
+            time.sleep(poll)
+
+    # ------------------------------------------------------------------ results
+    def trials(self) -> pd.DataFrame:
+        """Every finished trial (complete, pruned, failed) with its parameters."""
+        return pd.DataFrame(self.store.trial_rows(self.id))
+
+    def leaderboard(self) -> pd.DataFrame:
+        """Complete candidates best first: trials and library ensembles, natural metric sign.
+
+        ``DataFrame.attrs`` carries the metric and whether greater or smaller is better.
+        """
+        rec = self.record()
+        spec = SearchSpec.model_validate(rec["spec"])
+        metric = Metric(spec.metric) if spec.metric else Metric.ROC_AUC
+        sign = -1.0 if metric in LOWER_IS_BETTER else 1.0
+        rows = []
+        for r in self.store.board(self.id):
+            rows.append(
+                {
+                    "candidate": f"t{r['number']}",
+                    "family": r["family"],
+                    "members": _members(r),
+                    "score": float(r["score"]),
+                    "std": float(r.get("score_std", 0.0)),
+                    "folds": len(r.get("fold_scores", [])),
+                    "fit_seconds": float(r.get("fit_seconds", 0.0)),
+                    "predict_ms_per_1000": float(r.get("predict_ms", 0.0)),
+                    "trial": int(r["number"]),
+                }
+            )
+        for ens in self.store.extras(self.id).get("library", []):
+            rows.append(
+                {
+                    "candidate": ens["id"],
+                    "family": f"library:{ens['method']}",
+                    "members": ",".join(f"t{m}" for m in ens["members"]),
+                    "score": float(ens["score"]),
+                    "std": float(ens.get("score_std", 0.0)),
+                    "folds": len(ens.get("fold_scores", [])),
+                    "fit_seconds": None,
+                    "predict_ms_per_1000": None,
+                    "trial": None,
+                }
+            )
+        cols = [
+            "rank",
+            "candidate",
+            "family",
+            "members",
+            metric.value,
+            f"{metric.value}_std",
+            "folds",
+            "fit_seconds",
+            "predict_ms_per_1000",
+            "trial",
+        ]
+        if not rows:
+            board = pd.DataFrame(columns=cols)
+        else:
+            board = pd.DataFrame(rows).sort_values(
+                ["score", "candidate"], ascending=[False, True], kind="stable"
+            )
+            board[metric.value] = sign * board.pop("score")
+            board[f"{metric.value}_std"] = board.pop("std")
+            board.insert(0, "rank", range(1, len(board) + 1))
+            board = board[cols].reset_index(drop=True)
+        board.attrs.update(
+            metric=metric.value,
+            greater_is_better=sign > 0,
+            direction="higher is better" if sign > 0 else "lower is better",
+        )
+        return board
+
+    def _artifact(self, name: str = "best") -> tuple[bytes, dict[str, Any]]:
+        found = self.store.get_artifact(self.id, name)
+        if found is None:
+            st = self.store.state(self.id)
+            raise ArtifactError(
+                f"job {self.id} has no fitted pipeline yet (state {st.value}); "
+                "wait for it to finish (job.wait()) or check `tutti status`.",
+                field="artifact",
+                value=name,
+            )
+        return found
+
+    def best_pipeline(self) -> Any:
+        """The winner refitted on all rows: a scikit-learn estimator that takes raw rows."""
+        blob, meta = self._artifact()
+        return load_pipeline(blob, meta, key=self.client.settings.artifact_key)
+
+    def artifact_meta(self) -> dict[str, Any]:
+        return self._artifact()[1]
+
+    def export(self, path: str | Path) -> Path:
+        """Write the best pipeline as a skops file plus ``<file>.json`` metadata."""
+        blob, meta = self._artifact()
+        load_pipeline(blob, meta, key=self.client.settings.artifact_key)  # verify first
+        out = Path(path)
+        write_export(out, blob, meta)
+        return out
+
+    def extras(self) -> dict[str, Any]:
+        return self.store.extras(self.id)
+
+    def logs(self) -> list[str]:
+        return self.store.logs(self.id)
+
+    def cancel(self) -> bool:
+        """Stop the search; workers stop within one fold and finalize keeps the best so far."""
+        prev = self.store.transition(
+            self.id, JobState.CANCELLED, allowed_from=[JobState.QUEUED, JobState.RUNNING]
+        )
+        if prev is None:
+            st = self.store.state(self.id)
+            if st is JobState.CANCELLED:
+                return False
+            raise JobStateError(
+                f"job {self.id} is {st.value}; only queued or running jobs can be cancelled.",
+                field="state",
+                value=st.value,
+            )
+        return True
+
+    def delete(self) -> int:
+        return self.store.delete_job(self.id)
+
+
+def _members(row: dict[str, Any]) -> str:
+    params = row.get("params") or {}
+    names = [
+        str(v)
+        for k, v in params.items()
+        if k.endswith((".learner", ".members", ".estimators", ".kind"))
+    ]
+    return ",".join(names)
+
+
+def progress_line(st: dict[str, Any]) -> str:
+    """``[#####-----] 12/60 trials · best roc_auc 0.9612 · 01:23 · running``."""
+    width = 24
+    frac = min(st["trials_done"] / max(st["budget"], 1), 1.0)
+    bar = "#" * round(frac * width) + "-" * (width - round(frac * width))
+    best = "—" if st["best"] is None else f"{st['best']:.4f}"
+    fails = f" · {st['failed']} failed" if st["failed"] else ""
+    return (
+        f"[{bar}] {st['trials_done']}/{st['budget']} trials · best {st['metric']} {best}"
+        f" · {_fmt_seconds(st['elapsed'])}{fails} · {st['state']}   "
+    )
+
+
+def dumps(obj: Any) -> str:
+    return json.dumps(obj, indent=2, default=str)

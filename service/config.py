@@ -1,0 +1,60 @@
+"""Settings built once from environment variables and passed down explicitly."""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+
+def default_home() -> Path:
+    """Per-user data directory for the embedded store (XDG convention)."""
+    base = os.environ.get("XDG_DATA_HOME") or str(Path.home() / ".local" / "share")
+    return Path(base) / "tutti"
+
+
+def _env_float(name: str, default: float) -> float:
+    raw = os.environ.get(name)
+    return float(raw) if raw not in (None, "") else default
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Deployment settings shared by clients and workers.
+
+    Attributes:
+        redis_url: URL of the shared Redis; ``None`` means the embedded server under ``home``.
+        prefix: every Redis key starts with this (so deployments can share a server).
+        home: data directory of the embedded server (``TUTTI_HOME``).
+        shard_seconds: length of one search slice before a shard re-enqueues itself.
+        lease_seconds: expiry of a running trial's lease; a trial whose lease lapsed is reaped.
+        max_upload_bytes: size cap of one uploaded table (encoded Parquet bytes).
+        artifact_key: optional HMAC key that signs stored pipelines (``TUTTI_ARTIFACT_KEY``).
+    """
+
+    redis_url: str | None = None
+    prefix: str = "tutti"
+    home: Path = field(default_factory=default_home)
+    shard_seconds: float = 45.0
+    lease_seconds: float = 20.0
+    max_upload_bytes: int = 2 * 1024**3
+    artifact_key: str | None = None
+
+    @classmethod
+    def from_env(cls, **overrides: object) -> Settings:
+        """Read ``TUTTI_*`` variables; keyword overrides that are not ``None`` win."""
+        settings = cls(
+            redis_url=os.environ.get("TUTTI_REDIS_URL") or None,
+            prefix=os.environ.get("TUTTI_PREFIX") or "tutti",
+            home=Path(os.environ["TUTTI_HOME"])
+            if os.environ.get("TUTTI_HOME")
+            else default_home(),
+            shard_seconds=_env_float("TUTTI_SHARD_SECONDS", 45.0),
+            lease_seconds=_env_float("TUTTI_LEASE_SECONDS", 20.0),
+            max_upload_bytes=int(_env_float("TUTTI_MAX_UPLOAD_BYTES", 2 * 1024**3)),
+            artifact_key=os.environ.get("TUTTI_ARTIFACT_KEY") or None,
+        )
+        given = {k: v for k, v in overrides.items() if v is not None}
+        if "home" in given:
+            given["home"] = Path(str(given["home"]))
+        return replace(settings, **given)  # type: ignore[arg-type]

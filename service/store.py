@@ -1,0 +1,477 @@
+"""JobStore: the job record and its state machine, data blobs, trial rows, leaderboard, artifacts.
+
+Everything lives in Redis under one key prefix (see ``service.keys``). Values are JSON text or
+raw bytes (Parquet, ``.npy`` without pickle, skops); nothing read here is ever unpickled.
+Writes that touch several keys go through one transaction or Lua script.
+"""
+
+from __future__ import annotations
+
+import enum
+import json
+import time
+from collections.abc import Callable, Iterable
+from typing import Any
+
+import redis
+
+from service.errors import InvalidDataError, JobNotFoundError, JobStateError
+from service.keys import Keys, check_id
+
+CHUNK_BYTES = 64 * 1024 * 1024  # one Redis string holds at most 512 MB
+LOG_LINES = 5000
+
+
+class JobState(enum.StrEnum):
+    """Job states; ``finished``, ``failed`` and ``cancelled`` are terminal."""
+
+    QUEUED = "queued"
+    RUNNING = "running"
+    FINALIZING = "finalizing"
+    FINISHED = "finished"
+    FAILED = "failed"
+    CANCELLED = "cancelled"
+
+    @property
+    def terminal(self) -> bool:
+        return self in (JobState.FINISHED, JobState.FAILED, JobState.CANCELLED)
+
+
+#: Allowed transitions (the state machine of DESIGN.md, plus re-opening for ``extend``).
+TRANSITIONS: dict[JobState, frozenset[JobState]] = {
+    JobState.QUEUED: frozenset(
+        {JobState.RUNNING, JobState.FINALIZING, JobState.FAILED, JobState.CANCELLED}
+    ),
+    JobState.RUNNING: frozenset({JobState.FINALIZING, JobState.FAILED, JobState.CANCELLED}),
+    JobState.FINALIZING: frozenset({JobState.FINISHED, JobState.FAILED, JobState.CANCELLED}),
+    JobState.FINISHED: frozenset({JobState.QUEUED}),
+    JobState.CANCELLED: frozenset({JobState.QUEUED, JobState.FINALIZING}),
+    JobState.FAILED: frozenset({JobState.QUEUED}),
+}
+
+# KEYS[1]=job hash, KEYS[2]=events list; ARGV[1]=new state, ARGV[2]=timestamp,
+# ARGV[3]=reason, ARGV[4..]=allowed current states. Returns the previous state or false.
+_TRANSITION = """
+local cur = redis.call('HGET', KEYS[1], 'state')
+if not cur then return false end
+local ok = false
+for i = 4, #ARGV do if ARGV[i] == cur then ok = true end end
+if not ok then return false end
+redis.call('HSET', KEYS[1], 'state', ARGV[1], ARGV[1] .. '_at', ARGV[2])
+if ARGV[3] ~= '' then redis.call('HSET', KEYS[1], 'reason', ARGV[3]) end
+redis.call('RPUSH', KEYS[2], cjson.encode({state=ARGV[1], at=tonumber(ARGV[2]),
+  from=cur, reason=ARGV[3]}))
+return cur
+"""
+
+# KEYS[1]=tickets; ARGV[1]=budget. Returns the ticket number or -1 when the budget is spent.
+_TICKET = """
+local n = tonumber(redis.call('GET', KEYS[1]) or '0')
+if n >= tonumber(ARGV[1]) then return -1 end
+return redis.call('INCR', KEYS[1])
+"""
+
+# KEYS[1]=trials hash, KEYS[2]=board zset, KEYS[3]=library zset, KEYS[4]=oof key,
+# KEYS[5]=job hash; ARGV[1]=trial number, ARGV[2]=row json, ARGV[3]=score or '',
+# ARGV[4]=oof bytes or '', ARGV[5]=library size, ARGV[6]=oof key prefix, ARGV[7]=state
+_RECORD = """
+local first = redis.call('HSETNX', KEYS[1], ARGV[1], ARGV[2])
+if first == 0 then
+  local old = cjson.decode(redis.call('HGET', KEYS[1], ARGV[1]))
+  redis.call('HINCRBY', KEYS[5], 'n_' .. old['state'], -1)
+  redis.call('HSET', KEYS[1], ARGV[1], ARGV[2])
+end
+redis.call('HINCRBY', KEYS[5], 'n_' .. ARGV[7], 1)
+if ARGV[3] ~= '' then redis.call('ZADD', KEYS[2], ARGV[3], ARGV[1]) end
+if ARGV[4] ~= '' and ARGV[3] ~= '' and tonumber(ARGV[5]) > 0 then
+  redis.call('ZADD', KEYS[3], ARGV[3], ARGV[1])
+  redis.call('SET', KEYS[4], ARGV[4])
+  local n = redis.call('ZCARD', KEYS[3])
+  local k = tonumber(ARGV[5])
+  if n > k then
+    local out = redis.call('ZRANGE', KEYS[3], 0, n - k - 1)
+    for _, t in ipairs(out) do
+      redis.call('DEL', ARGV[6] .. t)
+      redis.call('ZREM', KEYS[3], t)
+    end
+  end
+end
+return 1
+"""
+
+
+def _now() -> float:
+    return time.time()
+
+
+def _text(value: Any) -> str:
+    return value.decode() if isinstance(value, bytes) else str(value)
+
+
+class JobStore:
+    """Reads and writes one deployment's jobs.
+
+    Args:
+        client: a Redis client (bytes responses).
+        keys: the key builder of the deployment's prefix.
+    """
+
+    def __init__(self, client: redis.Redis, keys: Keys) -> None:
+        self.r = client
+        self.keys = keys
+        self._transition = client.register_script(_TRANSITION)
+        self._ticket = client.register_script(_TICKET)
+        self._record = client.register_script(_RECORD)
+
+    # ------------------------------------------------------------------ data blobs
+    def has_data(self, digest: str) -> bool:
+        return bool(self.r.exists(self.keys.data_meta(digest)))
+
+    def put_data(
+        self,
+        digest: str,
+        data: bytes,
+        *,
+        chunk_bytes: int = CHUNK_BYTES,
+        progress: Callable[[int, int], None] | None = None,
+    ) -> None:
+        """Store a blob once under its content hash, in chunks; the meta key is written last."""
+        if self.has_data(digest):
+            if progress:
+                progress(len(data), len(data))
+            return
+        view = memoryview(data)
+        n = max(1, -(-len(data) // chunk_bytes))
+        for i in range(n):
+            self.r.set(
+                self.keys.data_chunk(digest, i),
+                bytes(view[i * chunk_bytes : (i + 1) * chunk_bytes]),
+            )
+            if progress:
+                progress(min((i + 1) * chunk_bytes, len(data)), len(data))
+        self.r.set(self.keys.data_meta(digest), json.dumps({"chunks": n, "bytes": len(data)}))
+
+    def get_data(self, digest: str) -> bytes:
+        raw = self.r.get(self.keys.data_meta(digest))
+        if raw is None:
+            raise InvalidDataError(
+                f"data blob {digest[:12]}… is not in the store; resubmit the job.",
+                field="data",
+                value=digest,
+            )
+        meta = json.loads(raw)
+        parts = [self.r.get(self.keys.data_chunk(digest, i)) for i in range(meta["chunks"])]
+        if any(p is None for p in parts):
+            raise InvalidDataError(
+                f"data blob {digest[:12]}… is incomplete; resubmit the job.",
+                field="data",
+                value=digest,
+            )
+        return b"".join(parts)  # type: ignore[arg-type]
+
+    # ------------------------------------------------------------------ job record
+    def create_job(self, job_id: str, record: dict[str, Any], *, shards: int) -> None:
+        """Write a new job (state ``queued``) with its counters in one transaction."""
+        now = _now()
+        fields = {k: (v if isinstance(v, str) else json.dumps(v)) for k, v in record.items()}
+        fields.update(
+            {
+                "id": job_id,
+                "state": JobState.QUEUED.value,
+                "created_at": str(now),
+                "queued_at": str(now),
+                "shards": str(shards),
+            }
+        )
+        pipe = self.r.pipeline(transaction=True)
+        pipe.hset(self.keys.job(job_id), mapping=fields)
+        pipe.zadd(self.keys.jobs, {job_id: now})
+        pipe.set(self.keys.tickets(job_id), 0)
+        pipe.set(self.keys.failures(job_id), 0)
+        pipe.set(self.keys.live_shards(job_id), shards)
+        pipe.rpush(
+            self.keys.job_events(job_id),
+            json.dumps({"state": "queued", "at": now, "from": None, "reason": ""}),
+        )
+        pipe.execute()
+
+    def exists(self, job_id: str) -> bool:
+        return bool(self.r.exists(self.keys.job(check_id(job_id))))
+
+    def job(self, job_id: str) -> dict[str, Any]:
+        """The job record with JSON fields decoded.
+
+        Raises:
+            JobNotFoundError: no such job (the message says how to list jobs).
+        """
+        raw = self.r.hgetall(self.keys.job(check_id(job_id)))
+        if not raw:
+            raise JobNotFoundError(
+                f"job {job_id!r} not found in this store; run `tutti status` to list jobs "
+                "(or check TUTTI_REDIS_URL / --redis-url points at the right server).",
+                field="job_id",
+                value=job_id,
+            )
+        out: dict[str, Any] = {}
+        for k, v in raw.items():
+            key, text = _text(k), _text(v)
+            if key in ("spec", "summary", "warnings", "dropped", "schema", "classes", "columns"):
+                out[key] = json.loads(text)
+            elif key.endswith("_at") or key in ("deadline", "search_deadline"):
+                out[key] = float(text)
+            else:
+                out[key] = text
+        return out
+
+    def state(self, job_id: str) -> JobState:
+        raw = self.r.hget(self.keys.job(job_id), "state")
+        if raw is None:
+            self.job(job_id)  # raises JobNotFoundError
+        return JobState(_text(raw))
+
+    def set_fields(self, job_id: str, **fields: Any) -> None:
+        self.r.hset(
+            self.keys.job(job_id),
+            mapping={k: (v if isinstance(v, str) else json.dumps(v)) for k, v in fields.items()},
+        )
+
+    def set_field_once(self, job_id: str, name: str, value: Any) -> Any:
+        """Set a field only if unset; return the value that is stored afterwards."""
+        key = self.keys.job(job_id)
+        self.r.hsetnx(key, name, value if isinstance(value, str) else json.dumps(value))
+        return _text(self.r.hget(key, name))
+
+    def transition(
+        self,
+        job_id: str,
+        to: JobState,
+        *,
+        allowed_from: Iterable[JobState] | None = None,
+        reason: str = "",
+    ) -> JobState | None:
+        """Atomic compare-and-set of the state; returns the previous state, None if refused."""
+        sources = (
+            list(allowed_from)
+            if allowed_from is not None
+            else [s for s, targets in TRANSITIONS.items() if to in targets]
+        )
+        prev = self._transition(
+            keys=[self.keys.job(job_id), self.keys.job_events(job_id)],
+            args=[to.value, repr(_now()), reason, *[s.value for s in sources]],
+        )
+        return JobState(_text(prev)) if prev else None
+
+    def require_state(self, job_id: str, allowed: Iterable[JobState], action: str) -> JobState:
+        st = self.state(job_id)
+        if st not in set(allowed):
+            raise JobStateError(
+                f"job {job_id} is {st.value}; {action} needs one of "
+                f"{', '.join(s.value for s in allowed)}.",
+                field="state",
+                value=st.value,
+            )
+        return st
+
+    def events(self, job_id: str) -> list[dict[str, Any]]:
+        return [json.loads(e) for e in self.r.lrange(self.keys.job_events(job_id), 0, -1)]
+
+    def job_ids(self) -> list[str]:
+        return [_text(j) for j in self.r.zrange(self.keys.jobs, 0, -1)]
+
+    # ------------------------------------------------------------------ budget counters
+    def take_ticket(self, job_id: str, budget: int) -> int | None:
+        """Take one trial ticket; None when ``budget`` tickets are already out."""
+        n = int(self._ticket(keys=[self.keys.tickets(job_id)], args=[budget]))
+        return None if n < 0 else n
+
+    def return_ticket(self, job_id: str) -> None:
+        self.r.decr(self.keys.tickets(job_id))
+
+    def tickets(self, job_id: str) -> int:
+        return int(self.r.get(self.keys.tickets(job_id)) or 0)
+
+    def add_failure(self, job_id: str) -> int:
+        return int(self.r.incr(self.keys.failures(job_id)))
+
+    def failures(self, job_id: str) -> int:
+        return int(self.r.get(self.keys.failures(job_id)) or 0)
+
+    def shard_stopped(self, job_id: str) -> int:
+        """One shard stopped for good; returns how many are still live (0 → finalize)."""
+        return int(self.r.decr(self.keys.live_shards(job_id)))
+
+    def add_live_shards(self, job_id: str, n: int) -> int:
+        return int(self.r.incrby(self.keys.live_shards(job_id), n))
+
+    def live_shards(self, job_id: str) -> int:
+        return int(self.r.get(self.keys.live_shards(job_id)) or 0)
+
+    # ------------------------------------------------------------------ trials
+    def record_trial(
+        self,
+        job_id: str,
+        row: dict[str, Any],
+        *,
+        oof: bytes | None = None,
+        library_size: int = 0,
+    ) -> None:
+        """Store a finished trial's row; complete ones join the board and maybe the library."""
+        number = int(row["number"])
+        score = row.get("score") if row.get("state") == "complete" else None
+        family = str(row.get("family", "unknown"))
+        self._record(
+            keys=[
+                self.keys.trials(job_id),
+                self.keys.board(job_id),
+                self.keys.library(job_id, family),
+                self.keys.oof(job_id, number),
+                self.keys.job(job_id),
+            ],
+            args=[
+                number,
+                json.dumps(row),
+                "" if score is None else repr(float(score)),
+                oof or b"",
+                library_size,
+                self.keys.oof(job_id, 0)[:-1],
+                str(row.get("state", "failed")),
+            ],
+        )
+
+    def trial_rows(self, job_id: str) -> list[dict[str, Any]]:
+        rows = [json.loads(v) for v in self.r.hvals(self.keys.trials(job_id))]
+        return sorted(rows, key=lambda r: int(r["number"]))
+
+    def board(self, job_id: str, limit: int = -1) -> list[dict[str, Any]]:
+        """Complete trials, best first (ties broken by trial number)."""
+        ids = self.r.zrevrange(
+            self.keys.board(job_id), 0, limit if limit < 0 else limit - 1, withscores=True
+        )
+        if not ids:
+            return []
+        raw = self.r.hmget(self.keys.trials(job_id), [i for i, _ in ids])
+        rows = [json.loads(v) for v in raw if v is not None]
+        return sorted(rows, key=lambda r: (-float(r["score"]), int(r["number"])))
+
+    def best_score(self, job_id: str) -> float | None:
+        top = self.r.zrevrange(self.keys.board(job_id), 0, 0, withscores=True)
+        return float(top[0][1]) if top else None
+
+    def library_members(self, job_id: str, families: Iterable[str]) -> dict[int, bytes]:
+        """Stored out-of-fold predictions of the kept candidates of the given families."""
+        out: dict[int, bytes] = {}
+        for fam in families:
+            for t in self.r.zrange(self.keys.library(job_id, fam), 0, -1):
+                blob = self.r.get(self.keys.oof(job_id, int(t)))
+                if blob is not None:
+                    out[int(t)] = blob
+        return out
+
+    # ------------------------------------------------------------------ artifacts, extras
+    def put_artifact(self, job_id: str, name: str, blob: bytes, meta: dict[str, Any]) -> None:
+        pipe = self.r.pipeline(transaction=True)
+        pipe.hset(
+            self.keys.artifact(job_id, name), mapping={"blob": blob, "meta": json.dumps(meta)}
+        )
+        pipe.sadd(self.keys.artifacts(job_id), name)
+        pipe.execute()
+
+    def get_artifact(self, job_id: str, name: str = "best") -> tuple[bytes, dict[str, Any]] | None:
+        blob, meta = self.r.hmget(self.keys.artifact(job_id, name), ["blob", "meta"])
+        if blob is None or meta is None:
+            return None
+        return bytes(blob), json.loads(meta)
+
+    def artifact_names(self, job_id: str) -> list[str]:
+        return sorted(_text(n) for n in self.r.smembers(self.keys.artifacts(job_id)))
+
+    def set_extra(self, job_id: str, name: str, value: Any) -> None:
+        self.r.hset(self.keys.extras(job_id), name, json.dumps(value))
+
+    def extras(self, job_id: str) -> dict[str, Any]:
+        return {
+            _text(k): json.loads(v) for k, v in self.r.hgetall(self.keys.extras(job_id)).items()
+        }
+
+    def commit_final(
+        self,
+        job_id: str,
+        epoch: str,
+        *,
+        artifacts: dict[str, tuple[bytes, dict[str, Any]]],
+        extras: dict[str, Any],
+        state: JobState,
+        reason: str = "",
+    ) -> bool:
+        """Commit a finalize's results exactly once per epoch (a fenced compare-and-set).
+
+        Returns False when another finalize already committed this epoch (nothing changes).
+        """
+        key = self.keys.job(job_id)
+        for _ in range(50):
+            with self.r.pipeline(transaction=True) as pipe:
+                try:
+                    pipe.watch(key)
+                    done = pipe.hget(key, "committed_epoch")
+                    if done is not None and _text(done) == epoch:
+                        return False
+                    cur = _text(pipe.hget(key, "state") or b"")
+                    now = repr(_now())
+                    pipe.multi()
+                    for name, (blob, meta) in artifacts.items():
+                        pipe.hset(
+                            self.keys.artifact(job_id, name),
+                            mapping={"blob": blob, "meta": json.dumps(meta)},
+                        )
+                        pipe.sadd(self.keys.artifacts(job_id), name)
+                    if extras:
+                        pipe.hset(
+                            self.keys.extras(job_id),
+                            mapping={k: json.dumps(v) for k, v in extras.items()},
+                        )
+                    fields = {"committed_epoch": epoch, "finalized_at": now}
+                    if cur != state.value:
+                        fields.update({"state": state.value, f"{state.value}_at": now})
+                        pipe.rpush(
+                            self.keys.job_events(job_id),
+                            json.dumps(
+                                {
+                                    "state": state.value,
+                                    "at": float(now),
+                                    "from": cur,
+                                    "reason": reason,
+                                }
+                            ),
+                        )
+                    if reason:
+                        fields["reason"] = reason
+                    pipe.hset(key, mapping=fields)
+                    pipe.execute()
+                    return True
+                except redis.WatchError:
+                    continue
+        raise JobStateError(f"job {job_id}: could not commit finalize (store too busy); retry.")
+
+    # ------------------------------------------------------------------ logs, deletion
+    def log(self, job_id: str, line: str) -> None:
+        pipe = self.r.pipeline(transaction=False)
+        pipe.rpush(self.keys.logs(job_id), f"{time.strftime('%Y-%m-%d %H:%M:%S')} {line}")
+        pipe.ltrim(self.keys.logs(job_id), -LOG_LINES, -1)
+        pipe.execute()
+
+    def logs(self, job_id: str) -> list[str]:
+        return [_text(x) for x in self.r.lrange(self.keys.logs(job_id), 0, -1)]
+
+    def delete_job(self, job_id: str) -> int:
+        """Remove a job's record, trials, journal, predictions and artifacts (not shared data)."""
+        self.job(job_id)
+        keys = [
+            self.keys.job(job_id),
+            *self.r.scan_iter(match=self.keys.job_pattern(job_id), count=1000),
+        ]
+        pipe = self.r.pipeline(transaction=True)
+        for k in keys:
+            pipe.delete(k)
+        pipe.zrem(self.keys.jobs, job_id)
+        pipe.execute()
+        return len(keys)

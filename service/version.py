@@ -1,0 +1,3 @@
+"""tutti's version (one place)."""
+
+__version__ = "0.1.0"

@@ -1,0 +1,202 @@
+"""Contract test classes that per-implementation test modules subclass.
+
+``FamilyContract`` checks what every ensemble family promises (STYLE section 8): ``suggest``
+uses only prefixed names, defaults lie in the search space, ``build`` returns an unfitted
+estimator that survives ``clone``, fit and predict work for each supported task, the same seed
+gives the same predictions, and a skops round trip (with ``service.trusted.TRUSTED_TYPES``)
+reproduces the predictions. Subclass it once per family and set ``family``.
+"""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+import numpy as np
+import optuna
+import pandas as pd
+import pytest
+import skops.io as sio
+from numpy.testing import assert_allclose, assert_array_equal
+from sklearn.base import clone
+from sklearn.datasets import make_classification, make_regression
+from sklearn.exceptions import NotFittedError
+from sklearn.utils.validation import check_is_fitted
+from threadpoolctl import threadpool_limits
+
+from service.trusted import TRUSTED_TYPES
+from workers import metrics
+from workers.families import FAMILIES
+from workers.families._base import BINARY, MULTICLASS, REGRESSION, BaseFamily, FamilyContext
+
+TASKS = (BINARY, MULTICLASS, REGRESSION)
+N_ROWS, N_TRAIN = 160, 120
+
+
+def family_data(task: str, seed: int = 0) -> tuple[pd.DataFrame, np.ndarray, FamilyContext]:
+    """A tiny table in the worker's input layout, its target and the matching context.
+
+    Four float columns (one with NaN), a low-cardinality categorical with missing values and a
+    30-level categorical; class labels are strings so that label handling is exercised.
+    """
+    if task == REGRESSION:
+        X, y = make_regression(n_samples=N_ROWS, n_features=4, noise=5.0, random_state=seed)
+    else:
+        X, y = make_classification(
+            n_samples=N_ROWS,
+            n_features=4,
+            n_informative=3,
+            n_redundant=0,
+            n_classes=2 if task == BINARY else 3,
+            random_state=seed,
+        )
+        y = np.array(["ant", "bee", "cat"], dtype=object)[y]
+    rng = np.random.default_rng(seed)
+    frame = pd.DataFrame(X, columns=[f"x{i}" for i in range(4)])
+    frame.loc[rng.random(N_ROWS) < 0.1, "x0"] = np.nan
+    color = rng.choice(["red", "green", "blue"], size=N_ROWS).astype(object)
+    color[rng.random(N_ROWS) < 0.15] = np.nan
+    frame["color"] = pd.Series(color, dtype=object)
+    frame["city"] = pd.Series([f"c{i}" for i in rng.integers(0, 30, N_ROWS)], dtype=object)
+    ctx = FamilyContext(
+        task=task,
+        random_state=seed,
+        n_rows=N_TRAIN,
+        numeric_columns=tuple(f"x{i}" for i in range(4)),
+        categorical_columns=("color",),
+        high_cardinality_columns=("city",),
+        n_classes=0 if task == REGRESSION else len(np.unique(y)),
+        row_cap=80,
+    )
+    return frame, y, ctx
+
+
+def _classes(task: str, y: np.ndarray) -> np.ndarray | None:
+    return None if task == REGRESSION else np.unique(y)
+
+
+_CANDIDATES: dict[tuple[str, str], list[dict[str, Any]]] = {}
+_FITTED: dict[tuple[str, str, int], tuple[Any, np.ndarray]] = {}
+
+
+class FamilyContract:
+    """Checks every family must pass; subclasses set ``family`` (and may lower ``n_sampled``)."""
+
+    family: ClassVar[BaseFamily]
+    n_sampled: ClassVar[int] = 2
+
+    @pytest.fixture(autouse=True)
+    def _one_thread(self) -> Any:
+        """One native thread per fit, as in the workers (OpenMP in LightGBM and sklearn)."""
+        with threadpool_limits(limits=1):
+            yield
+
+    # ---- helpers ---------------------------------------------------------------------------
+
+    def _task(self, task: str) -> tuple[pd.DataFrame, np.ndarray, FamilyContext]:
+        if task not in self.family.tasks:
+            pytest.skip(f"{self.family.name} does not support {task}")
+        return family_data(task)
+
+    def candidates(self, task: str) -> list[dict[str, Any]]:
+        """Defaults first, then ``n_sampled`` draws of a seeded random sampler."""
+        key = (self.family.name, task)
+        if key not in _CANDIDATES:
+            _, _, ctx = self._task(task)
+            drawn: list[dict[str, Any]] = []
+            study = optuna.create_study(sampler=optuna.samplers.RandomSampler(seed=7))
+            study.optimize(
+                lambda t: drawn.append(self.family.suggest(t, ctx)) or 0.0,
+                n_trials=self.n_sampled,
+            )
+            _CANDIDATES[key] = [*self.family.defaults(ctx), *drawn]
+        return _CANDIDATES[key]
+
+    def fitted(self, task: str, index: int) -> tuple[Any, np.ndarray]:
+        """Candidate ``index`` fitted on the first rows, with its stored-layout predictions."""
+        key = (self.family.name, task, index)
+        if key not in _FITTED:
+            X, y, ctx = self._task(task)
+            est = self.family.build(self.candidates(task)[index], ctx)
+            est.fit(X.iloc[:N_TRAIN], y[:N_TRAIN])
+            pred = metrics.predictions(est, X.iloc[N_TRAIN:], task, _classes(task, y))
+            _FITTED[key] = (est, pred)
+        return _FITTED[key]
+
+    def all_indices(self, task: str) -> range:
+        return range(len(self.candidates(task)))
+
+    # ---- the contract ----------------------------------------------------------------------
+
+    def test_registered_under_its_name(self) -> None:
+        assert FAMILIES[self.family.name] is self.family
+        assert self.family.tasks  # at least one task
+
+    @pytest.mark.parametrize("task", TASKS)
+    def test_suggest_uses_only_prefixed_names(self, task: str) -> None:
+        _, _, ctx = self._task(task)
+        prefix = f"{self.family.name}."
+        study = optuna.create_study(sampler=optuna.samplers.RandomSampler(seed=3))
+        returned: list[dict[str, Any]] = []
+        study.optimize(lambda t: returned.append(self.family.suggest(t, ctx)) or 0.0, n_trials=12)
+        for trial, params in zip(study.trials, returned, strict=True):
+            assert all(name.startswith(prefix) for name in trial.params), trial.params
+            assert params == trial.params  # the returned dict is keyed by the Optuna names
+
+    @pytest.mark.parametrize("task", TASKS)
+    def test_defaults_lie_in_the_search_space(self, task: str) -> None:
+        _, _, ctx = self._task(task)
+        defaults = self.family.defaults(ctx)
+        assert 1 <= len(defaults) <= 3
+        study = optuna.create_study()
+        for d in defaults:
+            study.enqueue_trial(d)
+        replayed: list[dict[str, Any]] = []
+        study.optimize(
+            lambda t: replayed.append(self.family.suggest(t, ctx)) or 0.0, n_trials=len(defaults)
+        )
+        for d, r in zip(defaults, replayed, strict=True):
+            assert d == r  # suggest() draws exactly the enqueued default again
+
+    @pytest.mark.parametrize("task", TASKS)
+    def test_build_returns_unfitted_clonable_estimator(self, task: str) -> None:
+        _, _, ctx = self._task(task)
+        for params in self.candidates(task):
+            est = self.family.build(params, ctx)
+            twin = clone(est)
+            assert twin.get_params().keys() == est.get_params().keys()
+            with pytest.raises(NotFittedError):
+                check_is_fitted(est)
+
+    @pytest.mark.parametrize("task", TASKS)
+    def test_fit_predict(self, task: str) -> None:
+        _, y, _ = self._task(task)
+        for index in self.all_indices(task):
+            _, pred = self.fitted(task, index)
+            assert np.all(np.isfinite(pred))
+            if task == REGRESSION:
+                assert pred.shape == (len(y) - N_TRAIN,)
+            else:  # rows are probabilities (or one-hot labels) over the sorted classes
+                assert pred.shape == (len(y) - N_TRAIN, len(np.unique(y)))
+                assert_allclose(pred.sum(axis=1), 1.0, rtol=1e-6)
+
+    @pytest.mark.parametrize("task", TASKS)
+    def test_same_seed_same_predictions(self, task: str) -> None:
+        X, y, ctx = self._task(task)
+        index = len(self.candidates(task)) - 1  # a sampled candidate
+        _, first = self.fitted(task, index)
+        again = self.family.build(self.candidates(task)[index], ctx)
+        again.fit(X.iloc[:N_TRAIN], y[:N_TRAIN])
+        second = metrics.predictions(again, X.iloc[N_TRAIN:], task, _classes(task, y))
+        assert_array_equal(first, second)
+
+    @pytest.mark.parametrize("task", TASKS)
+    def test_skops_round_trip_with_trusted_types(self, task: str) -> None:
+        X, y, _ = self._task(task)
+        for index in self.all_indices(task):
+            est, pred = self.fitted(task, index)
+            blob = sio.dumps(est)
+            untrusted = set(sio.get_untrusted_types(data=blob))
+            assert untrusted <= set(TRUSTED_TYPES), sorted(untrusted - set(TRUSTED_TYPES))
+            loaded = sio.loads(blob, trusted=list(TRUSTED_TYPES))
+            again = metrics.predictions(loaded, X.iloc[N_TRAIN:], task, _classes(task, y))
+            assert_array_equal(pred, again)

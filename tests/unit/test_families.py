@@ -1,0 +1,369 @@
+"""Family contracts plus reference checks of each family against scikit-learn or by hand."""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+import numpy as np
+import pandas as pd
+import pytest
+from lightgbm import LGBMClassifier
+from numpy.testing import assert_allclose
+from sklearn.base import clone
+from sklearn.ensemble import BaggingClassifier, BaggingRegressor, RandomForestClassifier
+from sklearn.linear_model import LogisticRegression, Ridge
+from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict, train_test_split
+from sklearn.pipeline import Pipeline
+from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
+
+from service.errors import InvalidSpecError
+from service.spec import KNOWN_FAMILIES
+from tests.contracts import N_TRAIN, FamilyContract, family_data
+from workers.ensembling import (
+    BlendingClassifier,
+    EarlyStoppingBoosterClassifier,
+    FrameNormalizer,
+    best_iterations,
+    refit_rounds,
+)
+from workers.families import FAMILIES, get_family
+from workers.families._learners import (
+    LEARNERS,
+    default_members,
+    learner_names,
+    make_preprocessor,
+)
+
+
+class TestSingleFamily(FamilyContract):
+    family = FAMILIES["single"]
+
+
+class TestBaggingFamily(FamilyContract):
+    family = FAMILIES["bagging"]
+
+
+class TestBoostingFamily(FamilyContract):
+    family = FAMILIES["boosting"]
+
+
+class TestVotingFamily(FamilyContract):
+    family = FAMILIES["voting"]
+
+
+class TestStackingFamily(FamilyContract):
+    family = FAMILIES["stacking"]
+    n_sampled = 1
+
+
+class TestBlendingFamily(FamilyContract):
+    family = FAMILIES["blending"]
+
+
+# ---- registry -------------------------------------------------------------------------------
+
+
+def test_registry_matches_the_spec_names() -> None:
+    assert tuple(sorted(FAMILIES)) == KNOWN_FAMILIES
+    assert all(FAMILIES[name].name == name for name in FAMILIES)
+
+
+def test_unknown_family_lists_known_names() -> None:
+    with pytest.raises(InvalidSpecError, match=r"unknown family 'boostng'.*bagging, blending"):
+        get_family("boostng")
+    assert get_family("voting") is FAMILIES["voting"]
+
+
+# ---- reference computations -----------------------------------------------------------------
+
+
+def _split(task: str) -> tuple[pd.DataFrame, np.ndarray, pd.DataFrame, Any]:
+    X, y, ctx = family_data(task)
+    return X.iloc[:N_TRAIN], y[:N_TRAIN], X.iloc[N_TRAIN:], ctx
+
+
+def _members_params(family: str, ctx: Any, members: tuple[str, ...]) -> dict[str, Any]:
+    return default_members(ctx, family, learner_names(ctx), members)
+
+
+@pytest.mark.parametrize("task", ["binary", "regression"])
+def test_stacking_equals_hand_computation(task: str) -> None:
+    X, y, X_test, ctx = _split(task)
+    members = ("linear", "tree")
+    params = _members_params("stacking", ctx, members)
+    params.update(
+        {
+            "stacking.cv": 3,
+            "stacking.passthrough": False,
+            "stacking.second_layer": False,
+            "stacking.meta": "linear",
+            "stacking.meta_C": 2.0,
+        }
+    )
+    est = FAMILIES["stacking"].build(params, ctx).fit(X, y)
+
+    # Hand computation following the StackingClassifier/Regressor user guide: the meta-model
+    # is fitted on cross_val_predict outputs of the members (int cv = StratifiedKFold for
+    # classifiers, KFold for regressors, no shuffling); for two classes only the second
+    # probability column is kept; members are refitted on all rows for prediction.
+    prep = make_preprocessor(ctx, scale=True, encoding="onehot")
+    Z, Z_test = prep.fit_transform(X, y), None
+    Z_test = prep.transform(X_test)
+    models = [LEARNERS[n].model(params, ctx, f"stacking.{n}") for n in members]
+    if task == "binary":
+        cv: Any = StratifiedKFold(3)
+        oof = [
+            cross_val_predict(clone(m), Z, y, cv=cv, method="predict_proba")[:, 1:] for m in models
+        ]
+        meta = LogisticRegression(C=2.0, max_iter=1000, random_state=0).fit(np.hstack(oof), y)
+        full = [clone(m).fit(Z, y) for m in models]
+        want = meta.predict_proba(np.hstack([m.predict_proba(Z_test)[:, 1:] for m in full]))
+        assert_allclose(est.predict_proba(X_test), want, rtol=1e-6, atol=1e-9)
+    else:
+        oof = [cross_val_predict(clone(m), Z, y, cv=KFold(3)) for m in models]
+        meta = Ridge(alpha=0.5, random_state=0).fit(np.column_stack(oof), y)
+        full = [clone(m).fit(Z, y) for m in models]
+        want = meta.predict(np.column_stack([m.predict(Z_test) for m in full]))
+        assert_allclose(est.predict(X_test), want, rtol=1e-6, atol=1e-9)
+
+
+def test_soft_vote_is_weighted_mean_of_member_probabilities() -> None:
+    X, y, X_test, ctx = _split("multiclass")
+    members = ("linear", "naive_bayes", "tree")
+    weights = {"linear": 0.2, "naive_bayes": 0.5, "tree": 1.0}
+    params = _members_params("voting", ctx, members)
+    params.update(
+        {"voting.voting": "soft", **{f"voting.weight.{n}": w for n, w in weights.items()}}
+    )
+    got = FAMILIES["voting"].build(params, ctx).fit(X, y).predict_proba(X_test)
+    # VotingClassifier user guide: soft voting averages the members' predict_proba with the
+    # given weights (np.average over members).
+    probas = [
+        LEARNERS[n].build(params, ctx, f"voting.{n}").fit(X, y).predict_proba(X_test)
+        for n in members
+    ]
+    want = np.average(probas, axis=0, weights=[weights[n] for n in members])
+    assert_allclose(got, want, rtol=1e-10)
+
+
+def test_blending_equals_hand_computation() -> None:
+    X, y, X_test, ctx = _split("binary")
+    members = ("linear", "tree")
+    params = _members_params("blending", ctx, members)
+    params.update(
+        {"blending.holdout_fraction": 0.25, "blending.meta": "linear", "blending.meta_C": 1.0}
+    )
+    got = FAMILIES["blending"].build(params, ctx).fit(X, y).predict_proba(X_test)
+    # Hand computation of the documented rule: stratified seeded hold-out split, members fit
+    # on the rest, meta-model on their positive-class probabilities for the hold-out rows,
+    # members refitted on all rows for prediction.
+    train, hold = train_test_split(np.arange(len(y)), test_size=0.25, stratify=y, random_state=0)
+    pipes = [LEARNERS[n].build(params, ctx, f"blending.{n}") for n in members]
+    part = [clone(p).fit(X.iloc[train], y[train]) for p in pipes]
+    meta_X = np.hstack([p.predict_proba(X.iloc[hold])[:, 1:] for p in part])
+    meta = LogisticRegression(C=1.0, max_iter=1000, random_state=0).fit(meta_X, y[hold])
+    full = [clone(p).fit(X, y) for p in pipes]
+    want = meta.predict_proba(np.hstack([p.predict_proba(X_test)[:, 1:] for p in full]))
+    assert_allclose(got, want, rtol=1e-10)
+
+
+def test_blending_drop_member_equals_never_adding_it() -> None:
+    X, y, X_test, ctx = _split("multiclass")
+    a = LEARNERS["linear"].build(LEARNERS["linear"].defaults(ctx, "a"), ctx, "a")
+    b = LEARNERS["tree"].build(LEARNERS["tree"].defaults(ctx, "b"), ctx, "b")
+    with_drop = BlendingClassifier([("a", a), ("x", "drop"), ("b", b)], random_state=0)
+    without = BlendingClassifier([("a", clone(a)), ("b", clone(b))], random_state=0)
+    # STYLE 8 rule: dropping a member equals never adding it.
+    assert_allclose(
+        with_drop.fit(X, y).predict_proba(X_test),
+        without.fit(X, y).predict_proba(X_test),
+        rtol=1e-12,
+    )
+
+
+@pytest.mark.parametrize("task", ["binary", "regression"])
+def test_bagging_matches_sklearn_bagging_built_directly(task: str) -> None:
+    X, y, X_test, ctx = _split(task)
+    params = {
+        "bagging.kind": "bagged",
+        "bagging.base": "tree",
+        "bagging.tree.max_depth": 4,
+        "bagging.tree.min_samples_leaf": 3,
+        "bagging.n_estimators": 15,
+        "bagging.max_samples": 0.7,
+        "bagging.max_features": 0.8,
+        "bagging.bootstrap": True,
+        "bagging.bootstrap_features": True,
+    }
+    if task == "binary":
+        params["bagging.tree.class_weight"] = "none"
+    got_est = FAMILIES["bagging"].build(params, ctx).fit(X, y)
+    bag, tree = (
+        (BaggingClassifier, DecisionTreeClassifier)
+        if task == "binary"
+        else (BaggingRegressor, DecisionTreeRegressor)
+    )
+    direct = Pipeline(
+        [
+            ("prep", make_preprocessor(ctx, scale=False, encoding="ordinal")),
+            (
+                "model",
+                bag(
+                    tree(max_depth=4, min_samples_leaf=3, random_state=0),
+                    n_estimators=15,
+                    max_samples=0.7,
+                    max_features=0.8,
+                    bootstrap=True,
+                    bootstrap_features=True,
+                    random_state=0,
+                ),
+            ),
+        ]
+    ).fit(X, y)
+    # scikit-learn's BaggingClassifier/Regressor with the same parameters and seed.
+    if task == "binary":
+        assert_allclose(got_est.predict_proba(X_test), direct.predict_proba(X_test))
+    else:
+        assert_allclose(got_est.predict(X_test), direct.predict(X_test))
+
+
+def test_random_forest_choice_matches_sklearn_forest() -> None:
+    X, y, X_test, ctx = _split("binary")
+    params = {
+        "bagging.kind": "random_forest",
+        "bagging.random_forest.n_estimators": 30,
+        "bagging.random_forest.max_features": 0.5,
+        "bagging.random_forest.min_samples_leaf": 2,
+        "bagging.random_forest.class_weight": "balanced",
+    }
+    got = FAMILIES["bagging"].build(params, ctx).fit(X, y).predict_proba(X_test)
+    direct = Pipeline(
+        [
+            ("prep", make_preprocessor(ctx, scale=False, encoding="ordinal")),
+            (
+                "model",
+                RandomForestClassifier(
+                    n_estimators=30,
+                    max_features=0.5,
+                    min_samples_leaf=2,
+                    class_weight="balanced",
+                    n_jobs=1,
+                    random_state=0,
+                ),
+            ),
+        ]
+    ).fit(X, y)
+    # scikit-learn's RandomForestClassifier with the same parameters and seed.
+    assert_allclose(got, direct.predict_proba(X_test))
+
+
+# ---- early stopping ---------------------------------------------------------------------------
+
+
+class _SpyLGBM(LGBMClassifier):
+    """LGBMClassifier recording the row ids (last column) it is fitted and evaluated on."""
+
+    seen: ClassVar[dict[str, list[np.ndarray]]] = {"fit": [], "eval": []}
+
+    def fit(self, X: Any, y: Any, **kw: Any) -> _SpyLGBM:  # type: ignore[override]
+        self.seen["fit"].append(np.asarray(X)[:, -1])
+        for part in kw.get("eval_X") or ():
+            self.seen["eval"].append(np.asarray(part)[:, -1])
+        return super().fit(X, y, **kw)  # type: ignore[return-value]
+
+
+def test_early_stopping_booster_never_sees_test_rows() -> None:
+    X, y, _ = family_data("binary")
+    table = X[["x1", "x2", "x3"]].assign(rid=np.arange(len(y), dtype=float))
+    train_rows, test_rows = np.arange(0, 100), np.arange(100, len(y))
+    _SpyLGBM.seen = {"fit": [], "eval": []}
+    spy = _SpyLGBM(n_estimators=5, min_child_samples=5, n_jobs=1, verbose=-1, random_state=0)
+    booster = EarlyStoppingBoosterClassifier(
+        spy, max_rounds=200, patience=10, validation_fraction=0.2, random_state=0
+    )
+    booster.fit(table.iloc[train_rows], y[train_rows])
+    fit_rows = np.concatenate(_SpyLGBM.seen["fit"]).astype(int)
+    eval_rows = np.concatenate(_SpyLGBM.seen["eval"]).astype(int)
+    # common practice: the early-stopping slice is carved from the training rows only
+    assert set(fit_rows) | set(eval_rows) == set(train_rows)
+    assert not set(fit_rows) & set(eval_rows)
+    assert not (set(fit_rows) | set(eval_rows)) & set(test_rows)
+    assert len(eval_rows) == 20  # validation_fraction * 100 rows
+    assert 1 <= booster.best_iteration_ <= 200
+
+    _SpyLGBM.seen = {"fit": [], "eval": []}
+    fixed = clone(booster).set_params(fixed_rounds=7).fit(table.iloc[train_rows], y[train_rows])
+    assert _SpyLGBM.seen["eval"] == []  # no early stopping, all training rows fitted
+    assert set(np.concatenate(_SpyLGBM.seen["fit"]).astype(int)) == set(train_rows)
+    assert fixed.estimator_.booster_.num_trees() == 7 and fixed.best_iteration_ == 7
+
+
+def test_refit_rounds_rule() -> None:
+    # hand computation: mean(10, 20, 30) = 20, scaled by 1000 / 800 -> 25
+    assert refit_rounds([10, 20, 30], n_train_fold=800, n_all=1000) == 25
+    assert refit_rounds([1], n_train_fold=1000, n_all=10) == 1  # never below one round
+    with pytest.raises(ValueError, match="empty"):
+        refit_rounds([], n_train_fold=10, n_all=10)
+
+
+@pytest.mark.parametrize(
+    ("family", "params_of", "path"),
+    [
+        ("single", lambda ctx: FAMILIES["single"].defaults(ctx)[0], "model__fixed_rounds"),
+        ("voting", lambda ctx: FAMILIES["voting"].defaults(ctx)[0], "lgbm__model__fixed_rounds"),
+        (
+            "stacking",
+            lambda ctx: FAMILIES["stacking"].defaults(ctx)[0],
+            "model__lgbm__fixed_rounds",
+        ),
+        (
+            "blending",
+            lambda ctx: FAMILIES["blending"].defaults(ctx)[0],
+            "lgbm__model__fixed_rounds",
+        ),
+    ],
+)
+def test_best_iterations_paths_can_be_set(family: str, params_of: Any, path: str) -> None:
+    X, y, _, ctx = _split("binary")
+    est = FAMILIES[family].build(params_of(ctx), ctx)
+    fitted = clone(est).fit(X, y)
+    found = best_iterations(fitted)
+    assert list(found) == [path]
+    rounds = refit_rounds([found[path]], n_train_fold=len(y), n_all=len(y))
+    refit = clone(est).set_params(**{path: rounds}).fit(X, y)
+    assert best_iterations(refit) == {path: rounds}
+
+
+# ---- raw user rows --------------------------------------------------------------------------
+
+
+def test_json_like_category_names_reach_lightgbm_safely() -> None:
+    X, y, X_test, ctx = _split("binary")
+    odd = np.array(["a:b", "[x]", "c,d", '{"q"}'], dtype=object)
+    X = X.assign(color=pd.Series(odd[np.arange(len(X)) % 4], index=X.index, dtype=object))
+    params = _members_params("stacking", ctx, ("lgbm", "linear"))
+    params.update(
+        {
+            "stacking.cv": 3,
+            "stacking.passthrough": True,
+            "stacking.second_layer": False,
+            "stacking.meta": "lgbm",
+        }
+    )
+    est = FAMILIES["stacking"].build(params, ctx).fit(X, y)
+    # common practice: LightGBM rejects JSON special characters in feature names
+    assert est.predict_proba(X_test).shape == (len(X_test), 2)
+
+
+def test_frame_normalizer_in_front_accepts_raw_rows() -> None:
+    X, y, X_test, ctx = _split("multiclass")
+    schema = {c: "numeric" for c in ctx.numeric_columns}
+    schema.update(
+        {c: "categorical" for c in (*ctx.categorical_columns, *ctx.high_cardinality_columns)}
+    )
+    model = FAMILIES["single"].build(FAMILIES["single"].defaults(ctx)[1], ctx)
+    pipe = Pipeline([("normalize", FrameNormalizer(schema)), ("model", model)]).fit(X, y)
+    raw = X_test.astype({"x1": "Float64", "color": "string"}).assign(extra=1)
+    raw["x2"] = raw["x2"].astype(str)  # numbers typed as text
+    # the same rows in the worker layout give the same predictions (hand-built reference)
+    assert_allclose(pipe.predict_proba(raw), pipe.predict_proba(X_test), rtol=1e-12)

@@ -1,0 +1,8 @@
+"""``python -m workers``: same as ``tutti worker``."""
+
+import sys
+
+from workers.runner import main
+
+if __name__ == "__main__":
+    sys.exit(main())

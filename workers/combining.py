@@ -1,0 +1,111 @@
+"""LinearCombiner: the estimator a winning library ensemble is exported as.
+
+Library ensembles are chosen on stored out-of-fold predictions; refitting one refits only its
+members on all rows and combines their predictions with the weights (greedy selection) or the
+meta-model coefficients (stacked meta-model) learned on those out-of-fold rows. Imports only
+numpy and scikit-learn: it ends up inside exported pipelines.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin, clone
+from sklearn.utils.validation import check_is_fitted
+
+MODES = ("average", "logistic", "linear")
+
+
+def _softmax(z: np.ndarray) -> np.ndarray:
+    z = z - z.max(axis=1, keepdims=True)
+    e = np.exp(z)
+    return e / e.sum(axis=1, keepdims=True)
+
+
+class _Combiner(BaseEstimator):
+    """Shared fit/combine logic; see the classifier and regressor below."""
+
+    def __init__(
+        self,
+        estimators: list[tuple[str, Any]],
+        *,
+        mode: str = "average",
+        weights: list[float] | None = None,
+        coef: list[Any] | None = None,
+        intercept: list[float] | float | None = None,
+    ) -> None:
+        self.estimators = estimators
+        self.mode = mode
+        self.weights = weights
+        self.coef = coef
+        self.intercept = intercept
+
+    def _check(self) -> None:
+        if self.mode not in MODES:
+            raise ValueError(f"mode={self.mode!r}: choose one of {', '.join(MODES)}")
+        n = len(self.estimators)
+        if self.mode == "average" and (self.weights is None or len(self.weights) != n):
+            got = 0 if self.weights is None else len(self.weights)
+            raise ValueError(f"weights: {got} weights for {n} estimators; give one per estimator")
+
+    def fit(self, X: Any, y: Any) -> _Combiner:
+        """Fit every member on all rows; the combination itself was learned beforehand."""
+        self._check()
+        self.estimators_ = [clone(est).fit(X, y) for _, est in self.estimators]
+        self.n_features_in_ = getattr(self.estimators_[0], "n_features_in_", None)
+        if hasattr(X, "columns"):
+            self.feature_names_in_ = np.asarray(X.columns, dtype=object)
+        return self
+
+    def _member_outputs(self, X: Any) -> list[np.ndarray]:
+        raise NotImplementedError
+
+
+class LinearCombinerClassifier(ClassifierMixin, _Combiner):
+    """Members' class probabilities averaged with weights, or fed to a fitted logistic model."""
+
+    def fit(self, X: Any, y: Any) -> LinearCombinerClassifier:
+        super().fit(X, y)
+        self.classes_ = np.asarray(self.estimators_[0].classes_)
+        return self
+
+    def _proba(self, est: Any, X: Any) -> np.ndarray:
+        if hasattr(est, "predict_proba"):
+            return np.asarray(est.predict_proba(X), dtype=float)
+        labels = np.asarray(est.predict(X))
+        return (labels[:, None] == self.classes_[None, :]).astype(float)
+
+    def predict_proba(self, X: Any) -> np.ndarray:
+        check_is_fitted(self)
+        probas = [self._proba(est, X) for est in self.estimators_]
+        if self.mode == "average":
+            w = np.asarray(self.weights, dtype=float)
+            out = sum(wi * p for wi, p in zip(w, probas, strict=True)) / w.sum()
+            return np.asarray(out)
+        coef = np.atleast_2d(np.asarray(self.coef, dtype=float))
+        b = np.atleast_1d(np.asarray(self.intercept, dtype=float))
+        if len(self.classes_) == 2:
+            feats = np.column_stack([p[:, 1] for p in probas])
+            z = feats @ coef.ravel() + b[0]
+            p1 = 1.0 / (1.0 + np.exp(-z))
+            return np.column_stack([1.0 - p1, p1])
+        feats = np.hstack(probas)
+        return _softmax(feats @ coef.T + b)
+
+    def predict(self, X: Any) -> np.ndarray:
+        return self.classes_[np.argmax(self.predict_proba(X), axis=1)]
+
+
+class LinearCombinerRegressor(RegressorMixin, _Combiner):
+    """Members' predictions averaged with weights, or combined with fitted linear weights."""
+
+    def predict(self, X: Any) -> np.ndarray:
+        check_is_fitted(self)
+        preds = np.column_stack([np.asarray(e.predict(X), dtype=float) for e in self.estimators_])
+        if self.mode == "average":
+            w = np.asarray(self.weights, dtype=float)
+            return preds @ (w / w.sum())
+        coef = np.asarray(self.coef, dtype=float).ravel()
+        b = float(np.asarray(self.intercept if self.intercept is not None else 0.0).ravel()[0])
+        return preds @ coef + b

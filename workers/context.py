@@ -1,0 +1,65 @@
+"""What a worker process holds for its whole life: settings, store, queue, trial child."""
+
+from __future__ import annotations
+
+import os
+import socket
+import threading
+from dataclasses import dataclass, field
+
+from service.config import Settings
+from service.connection import connect
+from service.queue import TaskQueue
+from service.store import JobStore
+from workers.child import TrialProcess
+
+
+@dataclass
+class WorkerContext:
+    """Per-process state shared by the task functions (set up once by the worker launcher)."""
+
+    settings: Settings
+    url: str
+    store: JobStore
+    queue: TaskQueue
+    trials: TrialProcess
+    name: str
+    threads: int = 1
+    stop: threading.Event = field(default_factory=threading.Event)
+
+    @classmethod
+    def create(
+        cls, settings: Settings, url: str, *, name: str | None = None, threads: int = 1
+    ) -> WorkerContext:
+        from service.keys import Keys
+
+        client = connect(url)
+        keys = Keys(settings.prefix)
+        return cls(
+            settings=settings,
+            url=url,
+            store=JobStore(client, keys),
+            queue=TaskQueue(client, keys),
+            trials=TrialProcess(threads),
+            name=name or f"{socket.gethostname()}-{os.getpid()}",
+            threads=threads,
+        )
+
+
+_CURRENT: WorkerContext | None = None
+
+
+def install(ctx: WorkerContext) -> None:
+    global _CURRENT
+    _CURRENT = ctx
+
+
+def current() -> WorkerContext:
+    """The process's context; built from the environment when no launcher installed one."""
+    global _CURRENT
+    if _CURRENT is None:
+        from service.connection import resolve_url
+
+        settings = Settings.from_env()
+        _CURRENT = WorkerContext.create(settings, resolve_url(settings))
+    return _CURRENT

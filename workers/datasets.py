@@ -1,0 +1,192 @@
+"""A job's table as the workers see it: features, target, classes and the fixed fold assignment.
+
+The fold assignment is a vector of fold ids fixed by the job's seed, so every trial of every
+shard scores on the same rows and out-of-fold predictions line up row by row:
+``id >= 0`` test fold, ``PRE_BLOCK`` (-1) the first block of a time-ordered split (train only),
+``HOLDOUT`` (-2) rows reserved for the one final hold-out score.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from sklearn.model_selection import (
+    GroupKFold,
+    KFold,
+    StratifiedGroupKFold,
+    StratifiedKFold,
+    train_test_split,
+)
+
+from service.spec import SearchSpec, Task
+from workers.families._base import FamilyContext
+
+PRE_BLOCK = -1
+HOLDOUT = -2
+EXPANDING = "expanding"
+KFOLD = "kfold"
+ROW_CAP = 5000
+
+
+@dataclass
+class Dataset:
+    """Features, target and folds of one job (decoded once per process and cached)."""
+
+    X: pd.DataFrame
+    y: np.ndarray
+    task: str
+    classes: np.ndarray | None
+    fold_ids: np.ndarray
+    fold_mode: str
+    schema: dict[str, str]
+    numeric: tuple[str, ...]
+    categorical: tuple[str, ...]
+    high_cardinality: tuple[str, ...]
+
+    @property
+    def n_folds(self) -> int:
+        return int(self.fold_ids.max()) + 1
+
+    @property
+    def search_rows(self) -> np.ndarray:
+        """Rows the search may fit on (everything but the hold-out)."""
+        return np.flatnonzero(self.fold_ids != HOLDOUT)
+
+    @property
+    def holdout_rows(self) -> np.ndarray:
+        return np.flatnonzero(self.fold_ids == HOLDOUT)
+
+    @property
+    def scored_rows(self) -> np.ndarray:
+        """Rows that receive an out-of-fold prediction."""
+        return np.flatnonzero(self.fold_ids >= 0)
+
+    def folds(self) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+        """(train rows, test rows) per fold, as positional indices."""
+        ids = self.fold_ids
+        for f in range(self.n_folds):
+            test = np.flatnonzero(ids == f)
+            if self.fold_mode == EXPANDING:
+                train = np.flatnonzero((ids >= PRE_BLOCK) & (ids < f))
+            else:
+                train = np.flatnonzero((ids >= 0) & (ids != f))
+            yield train, test
+
+    def context(self, seed: int) -> FamilyContext:
+        train_rows = int(len(self.search_rows) * (self.n_folds - 1) / max(self.n_folds, 1))
+        return FamilyContext(
+            task=self.task,
+            random_state=seed,
+            n_rows=max(train_rows, 1),
+            numeric_columns=self.numeric,
+            categorical_columns=self.categorical,
+            high_cardinality_columns=self.high_cardinality,
+            n_classes=0 if self.classes is None else len(self.classes),
+            row_cap=ROW_CAP,
+        )
+
+
+def _stratify_labels(y: np.ndarray, task: str, folds: int) -> np.ndarray | None:
+    if task != Task.REGRESSION.value:
+        return y
+    return None
+
+
+def assign_folds(
+    frame: pd.DataFrame, y: np.ndarray, spec: SearchSpec, task: str
+) -> tuple[np.ndarray, str]:
+    """Fold id per row, fixed by the seed: stratified k-fold, group-aware or expanding window."""
+    n = len(y)
+    ids = np.full(n, PRE_BLOCK, dtype=np.int64)
+    rows = np.arange(n)
+    classification = task != Task.REGRESSION.value
+    if spec.holdout > 0:
+        strat = y if classification else None
+        groups = frame[spec.group_column] if spec.group_column else None
+        if spec.order_column:
+            order = np.argsort(frame[spec.order_column].to_numpy(), kind="stable")
+            cut = round(n * (1 - spec.holdout))
+            hold = order[cut:]
+        elif groups is not None:
+            uniq = pd.unique(groups.astype(str))
+            rng = np.random.default_rng(spec.seed)
+            chosen = set(
+                rng.choice(uniq, size=max(1, int(len(uniq) * spec.holdout)), replace=False)
+            )
+            hold = rows[groups.astype(str).isin(chosen).to_numpy()]
+        else:
+            _, hold = train_test_split(
+                rows, test_size=spec.holdout, random_state=spec.seed, stratify=strat
+            )
+        ids[hold] = HOLDOUT
+    search = np.flatnonzero(ids != HOLDOUT)
+    ys = y[search]
+    if spec.order_column:
+        order = search[np.argsort(frame[spec.order_column].to_numpy()[search], kind="stable")]
+        blocks = np.array_split(order, spec.folds + 1)
+        for f, block in enumerate(blocks[1:]):
+            ids[block] = f
+        return ids, EXPANDING
+    if spec.group_column:
+        groups = frame[spec.group_column].astype(str).to_numpy()[search]
+        splitter: Any = (
+            StratifiedGroupKFold(spec.folds, shuffle=True, random_state=spec.seed)
+            if classification
+            else GroupKFold(spec.folds)
+        )
+        split = splitter.split(np.zeros(len(search)), ys, groups)
+    elif classification:
+        split = StratifiedKFold(spec.folds, shuffle=True, random_state=spec.seed).split(
+            np.zeros(len(search)), ys
+        )
+    else:
+        split = KFold(spec.folds, shuffle=True, random_state=spec.seed).split(search)
+    for f, (_, test) in enumerate(split):
+        ids[search[test]] = f
+    return ids, KFOLD
+
+
+def target_vector(series: pd.Series, task: str) -> np.ndarray:
+    """The target as numpy: float for regression; labels (ints when integral) otherwise."""
+    if task == Task.REGRESSION.value:
+        return series.to_numpy(dtype=float)
+    values = series.to_numpy()
+    if (
+        values.dtype.kind == "f"
+        and np.all(np.isfinite(values))
+        and np.all(values == np.round(values))
+    ):
+        return values.astype(np.int64)
+    if values.dtype.kind in "OUT":
+        return values.astype(str).astype(object)
+    return values
+
+
+def build_dataset(frame: pd.DataFrame, record: dict[str, Any], spec: SearchSpec) -> Dataset:
+    """Turn the decoded table and the job record into a :class:`Dataset`."""
+    task = str(record["task"])
+    schema: dict[str, str] = dict(record["schema"])
+    y = target_vector(frame[spec.target], task)
+    fold_ids, mode = assign_folds(frame, y, spec, task)
+    X = frame[list(schema)]
+    classes = np.unique(y) if task != Task.REGRESSION.value else None
+    columns = record.get("columns") or {}
+    numeric = tuple(c for c, kind in schema.items() if kind == "numeric")
+    high = tuple(columns.get("high_cardinality", ()))
+    categorical = tuple(c for c, kind in schema.items() if kind == "categorical" and c not in high)
+    return Dataset(
+        X=X,
+        y=y,
+        task=task,
+        classes=classes,
+        fold_ids=fold_ids,
+        fold_mode=mode,
+        schema=schema,
+        numeric=numeric,
+        categorical=categorical,
+        high_cardinality=high,
+    )

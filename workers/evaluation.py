@@ -1,0 +1,99 @@
+"""Cross-validated scoring of one built candidate on the job's fixed folds; plain numbers out."""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from sklearn.base import clone
+
+from service.spec import Metric
+from workers import metrics
+from workers.datasets import Dataset
+
+
+class Pruned(Exception):
+    """The caller asked to stop after a fold (pruning or cancel)."""
+
+
+@dataclass
+class Evaluation:
+    """Outcome of one candidate's cross-validation.
+
+    Attributes:
+        fold_scores: greater-is-better score per evaluated fold.
+        oof: out-of-fold predictions over all rows (NaN where a row got none).
+        fit_seconds: total fit time over the folds.
+        predict_ms_per_1000: mean prediction time per 1,000 rows.
+        fit_info: per-fold facts a refit needs (e.g. boosting's best iteration per param path).
+        complete: every fold was evaluated.
+    """
+
+    fold_scores: list[float]
+    oof: np.ndarray
+    fit_seconds: float
+    predict_ms_per_1000: float
+    fit_info: list[dict[str, int]] = field(default_factory=list)
+    complete: bool = True
+
+    @property
+    def mean(self) -> float:
+        return float(np.mean(self.fold_scores))
+
+    @property
+    def std(self) -> float:
+        return float(np.std(self.fold_scores, ddof=1)) if len(self.fold_scores) > 1 else 0.0
+
+
+def empty_predictions(data: Dataset) -> np.ndarray:
+    n = len(data.y)
+    if data.classes is None:
+        return np.full(n, np.nan)
+    return np.full((n, len(data.classes)), np.nan)
+
+
+def cross_validate(
+    template: Any,
+    data: Dataset,
+    metric: Metric,
+    *,
+    on_fold: Callable[[int, float], bool] | None = None,
+    fit_info: Callable[[Any], dict[str, int]] | None = None,
+) -> Evaluation:
+    """Fit a clone of ``template`` on each fold's training rows and score its test rows.
+
+    Args:
+        template: unfitted estimator (preprocessing included).
+        data: the job's dataset and fold assignment.
+        metric: what to score with (greater is better internally).
+        on_fold: called after each fold with (fold, score); returning False stops early.
+        fit_info: extracts per-fold facts from the fitted estimator.
+
+    Raises:
+        Pruned: ``on_fold`` asked to stop; ``args[0]`` carries the partial Evaluation.
+    """
+    oof = empty_predictions(data)
+    scores: list[float] = []
+    info: list[dict[str, int]] = []
+    fit_s = 0.0
+    pred_ms: list[float] = []
+    X, y = data.X, data.y
+    for fold, (train, test) in enumerate(data.folds()):
+        est = clone(template)
+        t0 = time.perf_counter()
+        est.fit(X.iloc[train], y[train])
+        t1 = time.perf_counter()
+        pred = metrics.predictions(est, X.iloc[test], data.task, data.classes)
+        t2 = time.perf_counter()
+        fit_s += t1 - t0
+        pred_ms.append((t2 - t1) * 1000.0 * 1000.0 / max(len(test), 1))
+        oof[test] = pred
+        scores.append(metrics.score(metric, y[test], pred, data.classes))
+        if fit_info is not None:
+            info.append(fit_info(est))
+        if on_fold is not None and not on_fold(fold, scores[-1]):
+            raise Pruned(Evaluation(scores, oof, fit_s, float(np.mean(pred_ms)), info, False))
+    return Evaluation(scores, oof, fit_s, float(np.mean(pred_ms)), info, True)

@@ -1,0 +1,229 @@
+"""Finalize: library ensembles, choice of the winner, refit on all rows, fenced commit.
+
+Runs at least once per job (enqueued by the last shard to stop, re-enqueued by the sweep if
+its worker died) and commits exactly once per epoch: the commit is a compare-and-set on the
+job record, so a duplicate finalize changes nothing.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import hmac
+import logging
+import platform
+import time
+from typing import Any
+
+from service.spec import SearchSpec
+from service.store import JobState
+from service.trusted import TRUSTED_TYPES
+from workers.child import ChildFailure, TrialCrashed
+from workers.context import WorkerContext
+
+log = logging.getLogger(__name__)
+REFIT_TRIES = 3
+
+
+def versions() -> dict[str, str]:
+    """Library versions stored beside the artifact (the client warns on a mismatch)."""
+    import lightgbm
+    import numpy
+    import sklearn
+    import skops
+
+    from service.version import __version__
+
+    return {
+        "tutti": __version__,
+        "scikit-learn": sklearn.__version__,
+        "lightgbm": lightgbm.__version__,
+        "numpy": numpy.__version__,
+        "skops": skops.__version__,
+        "python": platform.python_version(),
+    }
+
+
+def sign(blob: bytes, key: str | None) -> str | None:
+    """HMAC-SHA256 of an artifact when a key is configured."""
+    if not key:
+        return None
+    return hmac.new(key.encode(), blob, hashlib.sha256).hexdigest()
+
+
+class Finalizer:
+    """Builds and commits the final result of one job."""
+
+    def __init__(self, ctx: WorkerContext, job_id: str) -> None:
+        self.ctx, self.job_id, self.store = ctx, job_id, ctx.store
+        self.record = self.store.job(job_id)
+        self.spec = SearchSpec.model_validate(self.record["spec"])
+        self.epoch = str(self.record.get("epoch", "0"))
+
+    def log(self, line: str) -> None:
+        log.info("job %s %s", self.job_id, line)
+        with contextlib.suppress(Exception):
+            self.store.log(self.job_id, f"[{self.ctx.name}] finalize: {line}")
+
+    def request(self, **extra: Any) -> dict[str, Any]:
+        return {
+            "redis_url": self.ctx.url,
+            "prefix": self.ctx.settings.prefix,
+            "job_id": self.job_id,
+            "seed": self.spec.seed,
+            "memory_mb": self.spec.memory_limit_mb,
+            **extra,
+        }
+
+    def run(self) -> str:
+        state = self.store.state(self.job_id)
+        if state in (JobState.FINISHED, JobState.FAILED):
+            return "already final"
+        final = JobState.CANCELLED if state is JobState.CANCELLED else JobState.FINISHED
+        if final is JobState.FINISHED:
+            self.store.transition(
+                self.job_id, JobState.FINALIZING, allowed_from=[JobState.QUEUED, JobState.RUNNING]
+            )
+        t0 = time.time()
+        board = self.store.board(self.job_id)
+        if not board:
+            return self.commit_empty(final)
+        library = self.library_ensembles(board)
+        candidates = self.candidates(board, library)
+        artifacts: dict[str, tuple[bytes, dict[str, Any]]] = {}
+        chosen: dict[str, Any] | None = None
+        errors: list[str] = []
+        for cand in candidates[:REFIT_TRIES]:
+            try:
+                artifacts["best"] = self.refit(cand)
+                chosen = cand
+                break
+            except (ChildFailure, TrialCrashed, ValueError) as exc:
+                errors.append(f"{cand['id']}: {exc}")
+                self.log(f"refit of {cand['id']} failed: {exc}")
+        if chosen is None:
+            reason = "refit of the best candidates failed: " + "; ".join(errors)
+            ok = self.store.commit_final(
+                self.job_id,
+                self.epoch,
+                artifacts={},
+                extras={"library": library, "refit_errors": errors},
+                state=JobState.FAILED,
+                reason=reason,
+            )
+            return "failed" if ok else "duplicate"
+        meta = artifacts["best"][1]
+        extras = {
+            "library": library,
+            "best": {k: chosen[k] for k in ("id", "kind", "family", "score")},
+            "holdout_score": meta.get("holdout_score"),
+            "finalize_seconds": time.time() - t0,
+            "refit_errors": errors,
+        }
+        ok = self.store.commit_final(
+            self.job_id, self.epoch, artifacts=artifacts, extras=extras, state=final
+        )
+        self.log(f"{'committed' if ok else 'duplicate, nothing changed'}: best {chosen['id']}")
+        return "committed" if ok else "duplicate"
+
+    def commit_empty(self, final: JobState) -> str:
+        rows = self.store.trial_rows(self.job_id)
+        errors = [r.get("error", "") for r in rows if r.get("state") == "failed"]
+        reason = (
+            f"no trial completed ({len(errors)} failed"
+            + (f"; last error: {errors[-1][:300]}" if errors else "")
+            + ")"
+        )
+        state = JobState.CANCELLED if final is JobState.CANCELLED else JobState.FAILED
+        ok = self.store.commit_final(
+            self.job_id, self.epoch, artifacts={}, extras={}, state=state, reason=reason
+        )
+        return "empty" if ok else "duplicate"
+
+    def library_ensembles(self, board: list[dict[str, Any]]) -> list[dict[str, Any]]:
+        """Ensembles over the stored out-of-fold predictions (no fold fits), scored honestly."""
+        if self.spec.library_size <= 0 or len(board) < 2:
+            return []
+        try:
+            _, result = self.ctx.trials.request(
+                "library",
+                self.request(families=list(self.spec.family_names)),
+                timeout=max(self.spec.trial_timeout, 300.0),
+            )
+            return list(result)
+        except (ChildFailure, TrialCrashed) as exc:
+            self.log(f"library ensembles skipped: {exc}")
+            return []
+
+    def candidates(
+        self, board: list[dict[str, Any]], library: list[dict[str, Any]]
+    ) -> list[dict[str, Any]]:
+        """Complete trials and library ensembles, best first (greater is better)."""
+        by_number = {int(r["number"]): r for r in board}
+        out = [
+            {
+                "id": f"t{r['number']}",
+                "kind": "trial",
+                "family": r["family"],
+                "score": float(r["score"]),
+                "members": [self.member(r)],
+                "weights": None,
+            }
+            for r in board
+        ]
+        for ens in library:
+            members = [by_number[int(n)] for n in ens["members"] if int(n) in by_number]
+            if len(members) != len(ens["members"]):
+                continue
+            out.append(
+                {
+                    "id": ens["id"],
+                    "kind": "library",
+                    "family": f"library:{ens['method']}",
+                    "score": float(ens["score"]),
+                    "members": [self.member(r) for r in members],
+                    "weights": ens.get("weights"),
+                    "combiner": ens.get("combiner"),
+                }
+            )
+        return sorted(out, key=lambda c: (-c["score"], c["kind"] != "trial", c["id"]))
+
+    @staticmethod
+    def member(row: dict[str, Any]) -> dict[str, Any]:
+        return {
+            "number": int(row["number"]),
+            "family": row["family"],
+            "params": row["params"],
+            "fit_info": row.get("fit_info") or [],
+        }
+
+    def refit(self, cand: dict[str, Any]) -> tuple[bytes, dict[str, Any]]:
+        _, out = self.ctx.trials.request(
+            "refit",
+            self.request(members=cand["members"], combiner=cand.get("combiner")),
+            timeout=max(4 * self.spec.trial_timeout, 600.0),
+        )
+        untrusted = set(out["untrusted"]) - set(TRUSTED_TYPES)
+        if untrusted:
+            raise ValueError(f"pipeline holds types outside the trusted list: {sorted(untrusted)}")
+        blob: bytes = out["blob"]
+        meta = {
+            "job_id": self.job_id,
+            "candidate": cand["id"],
+            "kind": cand["kind"],
+            "family": cand["family"],
+            "cv_score": cand["score"],
+            "metric": self.spec.metric.value if self.spec.metric else None,
+            "task": self.record["task"],
+            "classes": self.record.get("classes"),
+            "schema": self.record["schema"],
+            "sha256": out["sha256"],
+            "hmac": sign(blob, self.ctx.settings.artifact_key),
+            "size_bytes": out["size_bytes"],
+            "fit_seconds": out["fit_seconds"],
+            "predict_ms": out["predict_ms"],
+            "holdout_score": out["holdout_score"],
+            "versions": versions(),
+            "created_at": time.time(),
+        }
+        return blob, meta

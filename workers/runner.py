@@ -1,0 +1,244 @@
+"""The worker launcher behind ``tutti worker`` / ``python -m workers``.
+
+It starts ``--processes`` worker processes, each an RQ worker (JSON serializer, allow-listed
+tasks) that runs search slices and finalize tasks and owns one supervised trial child. Heavy
+modules are imported in each worker before it takes work; every process that fits runs with
+``threads`` threads (``processes × threads ≤ cores``). A SIGTERM asks every worker to finish
+or fail its current trial and exit; if the launcher dies, its workers and their trial
+children die with it.
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import logging
+import multiprocessing as mp
+import os
+import signal
+import sys
+import threading
+import time
+from dataclasses import asdict, dataclass
+from typing import Any
+
+log = logging.getLogger("tutti.worker")
+SWEEP_SECONDS = 30.0
+
+
+@dataclass(frozen=True)
+class WorkerOptions:
+    """Options of one worker process (JSON-friendly so spawn can pass them)."""
+
+    url: str | None
+    prefix: str | None
+    home: str | None
+    burst: bool
+    threads: int
+    name: str | None
+    shard_seconds: float | None = None
+    lease_seconds: float | None = None
+
+
+def _make_worker_class() -> type:
+    from rq.worker import SimpleWorker
+
+    from service.queue import ALLOWED_TASKS
+
+    class TuttiWorker(SimpleWorker):
+        """RQ's in-process worker that runs only our allow-listed task functions."""
+
+        stop_event: threading.Event | None = None
+
+        def perform_job(self, job: Any, queue: Any, execution: Any) -> bool:
+            try:
+                name, instance = job.func_name, job._instance
+            except Exception:  # undecodable payload (e.g. a pickle): refuse it
+                name, instance = None, None
+            if name not in ALLOWED_TASKS or instance is not None:
+                try:
+                    raise PermissionError(
+                        f"refused task {name!r}: tutti workers run only "
+                        f"{', '.join(sorted(ALLOWED_TASKS))}"
+                    )
+                except PermissionError:
+                    self._finalize_failure(job, queue, execution, sys.exc_info())
+                log.error("refused forged or foreign task %r (job %s)", name, job.id)
+                return False
+            return bool(super().perform_job(job, queue, execution))
+
+        def request_stop(self, signum: Any, frame: Any) -> None:
+            if self.stop_event is not None:
+                self.stop_event.set()
+            super().request_stop(signum, frame)
+
+    return TuttiWorker
+
+
+def _active_jobs(ctx: Any) -> bool:
+    from service.store import JobState
+
+    for job_id in ctx.store.job_ids():
+        with contextlib.suppress(Exception):
+            st = ctx.store.state(job_id)
+            if st in (JobState.QUEUED, JobState.RUNNING, JobState.FINALIZING):
+                return True
+            if st is JobState.CANCELLED and not ctx.store.r.hget(
+                ctx.store.keys.job(job_id), "committed_epoch"
+            ):
+                return True
+    return False
+
+
+def worker_main(opts: dict[str, Any]) -> None:
+    """Body of one worker process."""
+    o = WorkerOptions(**opts)
+    from workers.runtime import die_with_parent, limit_threads
+
+    die_with_parent(signal.SIGKILL)
+    limit_threads(o.threads)
+    logging.basicConfig(level=logging.INFO, format="%(asctime)s %(name)s %(message)s")
+    # preload the heavy modules once, before any work (a slice must not pay for imports)
+    import lightgbm  # noqa: F401
+    import optuna  # noqa: F401
+    import sklearn.ensemble  # noqa: F401
+
+    import workers.finalize
+    import workers.search  # noqa: F401
+    from service.config import Settings
+    from service.connection import resolve_url
+    from workers.context import WorkerContext, install
+    from workers.sweep import sweep
+
+    settings = Settings.from_env(
+        redis_url=o.url,
+        prefix=o.prefix,
+        home=o.home,
+        shard_seconds=o.shard_seconds,
+        lease_seconds=o.lease_seconds,
+    )
+    url = resolve_url(settings)
+    ctx = WorkerContext.create(settings, url, name=o.name, threads=o.threads)
+    install(ctx)
+    ctx.trials.start()
+    cls = _make_worker_class()
+    cls.stop_event = ctx.stop
+    worker = cls(
+        [ctx.queue.final, ctx.queue.search],
+        connection=ctx.store.r,
+        serializer="json",
+        name=ctx.name,
+    )
+
+    def sweeper() -> None:
+        while not ctx.stop.wait(SWEEP_SECONDS):
+            with contextlib.suppress(Exception):
+                sweep(ctx)
+
+    with contextlib.suppress(Exception):
+        sweep(ctx)
+    threading.Thread(target=sweeper, daemon=True, name="tutti-sweep").start()
+    try:
+        if not o.burst:
+            worker.work(with_scheduler=False, logging_level="WARNING")
+        else:
+            while not ctx.stop.is_set():
+                worker.work(burst=True, with_scheduler=False, logging_level="WARNING")
+                if ctx.stop.is_set() or not _active_jobs(ctx):
+                    break
+                with contextlib.suppress(Exception):
+                    sweep(ctx)
+                time.sleep(1.0)
+    finally:
+        ctx.stop.set()
+        ctx.trials.close()
+
+
+def parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="tutti worker", description="Run tutti worker processes.")
+    add_worker_arguments(p)
+    return p
+
+
+def add_worker_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--processes",
+        "-p",
+        type=int,
+        default=None,
+        help="worker processes on this machine (default: cores // threads)",
+    )
+    p.add_argument(
+        "--cores", type=int, default=None, help="cores this machine may use (default: all)"
+    )
+    p.add_argument("--threads", type=int, default=1, help="threads per model fit (default 1)")
+    p.add_argument("--burst", action="store_true", help="exit once no job is left to run")
+    p.add_argument(
+        "--redis-url",
+        default=None,
+        help="shared Redis (default TUTTI_REDIS_URL or the embedded server)",
+    )
+    p.add_argument("--prefix", default=None, help="key prefix (default TUTTI_PREFIX or tutti)")
+    p.add_argument("--name", default=None, help="worker name prefix")
+
+
+def plan(processes: int | None, cores: int | None, threads: int) -> tuple[int, int]:
+    """(processes, threads) such that processes × threads never exceeds the cores."""
+    total = cores or os.cpu_count() or 1
+    if threads < 1 or total < 1:
+        raise SystemExit("--threads and --cores must be at least 1")
+    threads = min(threads, total)
+    most = max(total // threads, 1)
+    if processes is None:
+        return most, threads
+    if processes < 1:
+        raise SystemExit("--processes must be at least 1")
+    if processes * threads > total:
+        raise SystemExit(
+            f"--processes {processes} × --threads {threads} exceeds --cores {total}; "
+            f"use at most {most} processes"
+        )
+    return processes, threads
+
+
+def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
+    """Start the worker processes and supervise them until they exit or a signal arrives."""
+    from workers.runtime import limit_threads
+
+    processes, threads = plan(args.processes, args.cores, args.threads)
+    limit_threads(threads)
+    ctx = mp.get_context("spawn")
+    base = args.name or f"{os.uname().nodename}-{os.getpid()}"
+    procs = []
+    for i in range(processes):
+        opts = WorkerOptions(
+            url=args.redis_url,
+            prefix=args.prefix,
+            home=home,
+            burst=args.burst,
+            threads=threads,
+            name=f"{base}.{i}",
+        )
+        p = ctx.Process(target=worker_main, args=(asdict(opts),), name=f"tutti-worker-{i}")
+        p.start()
+        procs.append(p)
+
+    def forward(signum: int, _frame: Any) -> None:
+        for p in procs:
+            with contextlib.suppress(ProcessLookupError, TypeError):
+                os.kill(p.pid, signal.SIGTERM)
+
+    signal.signal(signal.SIGTERM, forward)
+    signal.signal(signal.SIGINT, forward)
+    print(
+        f"tutti: {processes} worker process(es), {threads} thread(s) per fit; "
+        f"{'burst' if args.burst else 'Ctrl-C to stop'}",
+        flush=True,
+    )
+    for p in procs:
+        p.join()
+    return max((abs(p.exitcode or 0) for p in procs), default=0)
+
+
+def main(argv: list[str] | None = None) -> int:
+    return launch(parser().parse_args(argv))

@@ -1,0 +1,386 @@
+"""One search shard: a bounded slice of trials on the job's shared study, then hand-over.
+
+Trials start only with a ticket from an atomic counter (the budget is exact across shards),
+each running trial holds a short Redis lease refreshed while it runs, and a reaper fails
+trials whose lease lapsed (Optuna's journal storage has no heartbeat). At the end of a slice
+the shard re-enqueues itself while budget remains, so workers that join later get work; the
+last shard to stop for good enqueues finalize.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import logging
+import threading
+import time
+import warnings
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import optuna
+from optuna.trial import TrialState
+
+from service.spec import SearchSpec
+from service.store import JobState
+from workers.child import ChildFailure, TrialCrashed
+from workers.context import WorkerContext
+from workers.families import get_family
+from workers.families._base import FamilyContext
+from workers.journal import journal_storage
+from workers.trial_work import oof_bytes
+
+log = logging.getLogger(__name__)
+optuna.logging.set_verbosity(optuna.logging.WARNING)
+
+MAX_RETRIES = 2
+SLICE_SLACK = 600.0  # RQ job timeout on top of the slice and one trial
+
+
+def derive_seed(*parts: int) -> int:
+    """A sampler seed from (job seed, shard, slice): distinct shards never draw alike."""
+    h = 0
+    for p in parts:
+        h = (h * 1_000_003 + int(p) + 0x9E3779B1) % (2**31 - 1)
+    return h
+
+
+def context_from_record(record: dict[str, Any], seed: int) -> FamilyContext:
+    """The family context from the job record alone (the worker itself never decodes data)."""
+    spec = SearchSpec.model_validate(record["spec"])
+    schema: dict[str, str] = record["schema"]
+    cols = record.get("columns") or {}
+    high = tuple(cols.get("high_cardinality", ()))
+    n_rows = int(record["summary"]["rows"] * (1 - spec.holdout) * (spec.folds - 1) / spec.folds)
+    return FamilyContext(
+        task=str(record["task"]),
+        random_state=seed,
+        n_rows=max(n_rows, 1),
+        numeric_columns=tuple(c for c, k in schema.items() if k == "numeric"),
+        categorical_columns=tuple(
+            c for c, k in schema.items() if k == "categorical" and c not in high
+        ),
+        high_cardinality_columns=high,
+        n_classes=len(record.get("classes") or []),
+    )
+
+
+def open_study(ctx: WorkerContext, job_id: str, seed: int) -> optuna.Study:
+    """Create or load the job's study on the Redis journal, with a shard-specific sampler."""
+    storage = journal_storage(ctx.store.r, ctx.store.keys.journal(job_id))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
+        sampler = optuna.samplers.TPESampler(
+            seed=seed, multivariate=True, group=True, n_startup_trials=10
+        )
+    pruner = optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=1)
+    return optuna.create_study(
+        study_name=job_id,
+        storage=storage,
+        sampler=sampler,
+        pruner=pruner,
+        direction="maximize",
+        load_if_exists=True,
+    )
+
+
+@dataclass
+class Deadlines:
+    """Wall-clock limits of a job: trials start only before ``search``; all ends by ``hard``."""
+
+    hard: float
+    search: float
+
+    @classmethod
+    def of(cls, spec: SearchSpec, started_at: float) -> Deadlines:
+        limits = [float("inf")]
+        if spec.wall_seconds is not None:
+            limits.append(started_at + spec.wall_seconds)
+        if spec.deadline is not None:
+            limits.append(spec.deadline.timestamp())
+        hard = min(limits)
+        span = hard - started_at
+        reserve = min(max(0.1 * span, 5.0), 900.0) if np.isfinite(span) else 0.0
+        return cls(hard=hard, search=hard - reserve)
+
+
+class Lease:
+    """A Redis key with a short expiry, refreshed by a thread while a trial runs."""
+
+    def __init__(self, ctx: WorkerContext, key: str, seconds: float) -> None:
+        self._r, self._key, self._ttl = ctx.store.r, key, max(round(seconds * 1000), 1000)
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._beat, daemon=True, name="tutti-lease")
+
+    def _beat(self) -> None:
+        while not self._stop.wait(self._ttl / 3000.0):
+            with contextlib.suppress(Exception):
+                self._r.set(self._key, b"1", px=self._ttl)
+
+    def __enter__(self) -> Lease:
+        self._r.set(self._key, b"1", px=self._ttl)
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self._stop.set()
+        self._thread.join(2)
+        with contextlib.suppress(Exception):
+            self._r.delete(self._key)
+
+
+class Shard:
+    """Runs one slice of a job's search in this worker process."""
+
+    def __init__(self, ctx: WorkerContext, job_id: str, shard: int) -> None:
+        self.ctx, self.job_id, self.shard = ctx, job_id, shard
+        self.store = ctx.store
+        self.record = self.store.job(job_id)
+        self.spec = SearchSpec.model_validate(self.record["spec"])
+        self._last_reap = 0.0
+
+    # ----------------------------------------------------------------- entry point
+    def run(self) -> str:
+        """Run trials until the slice, the budget or the deadline ends; returns why it stopped."""
+        state = self.store.state(self.job_id)
+        if state in (JobState.FINISHED, JobState.FAILED, JobState.FINALIZING):
+            return "stale"
+        self.store.transition(self.job_id, JobState.RUNNING, allowed_from=[JobState.QUEUED])
+        started = float(self.store.set_field_once(self.job_id, "started_at", repr(time.time())))
+        self.deadlines = Deadlines.of(self.spec, started)
+        n_slice = int(self.store.r.hincrby(self.store.keys.job(self.job_id), "slices", 1))
+        seed = derive_seed(self.spec.seed, self.shard, n_slice)
+        self.fctx = context_from_record(self.record, self.spec.seed)
+        study = open_study(self.ctx, self.job_id, seed)
+        self._enqueue_defaults(study)
+        slice_end = time.monotonic() + self.ctx.settings.shard_seconds
+        reason = ""
+        while not reason:
+            reason = self.stop_reason()
+            if reason:
+                break
+            if time.monotonic() > slice_end:
+                reason = "slice"
+                break
+            if self.store.take_ticket(self.job_id, self.spec.max_trials) is None:
+                reason = "budget"
+                break
+            self.reap(study)
+            self.run_trial(study)
+        self.hand_over(reason)
+        return reason
+
+    def stop_reason(self) -> str:
+        """Why the shard must stop now ('' to go on); job-level reasons come first."""
+        if self.store.state(self.job_id) is JobState.CANCELLED:
+            return "cancelled"
+        if time.time() >= self.deadlines.search:
+            return "deadline"
+        if self.store.failures(self.job_id) >= self.spec.failure_cap:
+            return "failure_cap"
+        if self.ctx.stop.is_set():
+            return "worker_stop"
+        return ""
+
+    def hand_over(self, reason: str) -> None:
+        """Continue in a new slice, or stop for good (and finalize if this was the last)."""
+        if reason == "slice":
+            reason = self.stop_reason() or "slice"
+        if reason in ("slice", "worker_stop"):
+            self.ctx.queue.enqueue_shard(
+                self.job_id,
+                self.shard,
+                timeout=self.rq_timeout(),
+                at_front=reason == "worker_stop",
+            )
+            return
+        self.store.set_field_once(self.job_id, "stop_reason", reason)
+        self.log(f"shard {self.shard} stops: {reason}")
+        if self.store.shard_stopped(self.job_id) <= 0:
+            self.ctx.queue.enqueue_finalize(self.job_id, timeout=self.finalize_timeout())
+
+    def rq_timeout(self) -> float:
+        return self.ctx.settings.shard_seconds + self.spec.trial_timeout + SLICE_SLACK
+
+    def finalize_timeout(self) -> float:
+        return 4 * self.spec.trial_timeout + SLICE_SLACK
+
+    def log(self, line: str) -> None:
+        log.info("job %s %s", self.job_id, line)
+        with contextlib.suppress(Exception):
+            self.store.log(self.job_id, f"[{self.ctx.name}] {line}")
+
+    # ----------------------------------------------------------------- trials
+    def _enqueue_defaults(self, study: optuna.Study) -> None:
+        if not self.store.r.hsetnx(self.store.keys.job(self.job_id), "defaults_enqueued", 1):
+            return
+        for name in self.spec.family_names:
+            fam = get_family(name)
+            if self.fctx.task not in fam.tasks:
+                continue
+            for params in fam.defaults(self.fctx):
+                study.enqueue_trial({"family": name, **params}, user_attrs={"default": True})
+
+    def families(self) -> list[str]:
+        return [f for f in self.spec.family_names if self.fctx.task in get_family(f).tasks]
+
+    def run_trial(self, study: optuna.Study) -> None:
+        trial = study.ask()
+        t0 = time.time()
+        row: dict[str, Any] = {
+            "number": trial.number,
+            "shard": self.shard,
+            "worker": self.ctx.name,
+            "started_at": t0,
+        }
+        try:
+            family = str(trial.suggest_categorical("family", self.families()))
+            params = get_family(family).suggest(trial, self.fctx)
+        except Exception as exc:  # a broken search space: fail the trial, keep going
+            self.fail(
+                study,
+                trial,
+                {**row, "family": "unknown", "params": {}},
+                f"{type(exc).__name__}: {exc}",
+                retry=False,
+            )
+            return
+        row.update(family=family, params=params)
+        request = {
+            "redis_url": self.ctx.url,
+            "prefix": self.ctx.settings.prefix,
+            "job_id": self.job_id,
+            "family": family,
+            "params": params,
+            "seed": self.spec.seed,
+            "memory_mb": self.spec.memory_limit_mb,
+        }
+        scores: list[float] = []
+
+        def on_fold(fold: int, score: float) -> bool:
+            scores.append(score)
+            trial.report(float(np.mean(scores)), fold)
+            if self.store.state(self.job_id) is JobState.CANCELLED:
+                row["note"] = "cancelled"
+                return False
+            return not trial.should_prune()
+
+        lease_key = self.store.keys.trial_lease(self.job_id, trial._trial_id)
+        try:
+            with Lease(self.ctx, lease_key, self.ctx.settings.lease_seconds):
+                kind, result = self.ctx.trials.request(
+                    "evaluate", request, timeout=self.spec.trial_timeout, on_fold=on_fold
+                )
+        except (ChildFailure, TrialCrashed) as exc:
+            detail = str(exc)
+            if isinstance(exc, TrialCrashed) and exc.reason == "timeout":
+                detail = f"timeout: ran past trial_timeout={self.spec.trial_timeout:g} s"
+            self.fail(study, trial, row, detail, retry=True)
+            return
+        row.update(
+            fold_scores=result["fold_scores"],
+            fit_seconds=result["fit_seconds"],
+            predict_ms=result["predict_ms"],
+            fit_info=result["fit_info"],
+            finished_at=time.time(),
+            seconds=time.time() - t0,
+        )
+        if kind == "done":
+            score = float(np.mean(result["fold_scores"]))
+            row.update(
+                state="complete",
+                score=score,
+                score_std=float(np.std(result["fold_scores"], ddof=1))
+                if len(result["fold_scores"]) > 1
+                else 0.0,
+            )
+            if not self._tell(study, trial, values=score):
+                return
+            self.store.record_trial(
+                self.job_id, row, oof=oof_bytes(result["oof"]), library_size=self.spec.library_size
+            )
+            self.log(f"trial {trial.number} {family} complete score={score:.5f}")
+        else:
+            row.update(state="pruned")
+            if not self._tell(study, trial, state=TrialState.PRUNED):
+                return
+            self.store.record_trial(self.job_id, row)
+            self.log(f"trial {trial.number} {family} pruned after {len(scores)} folds")
+
+    def _tell(self, study: optuna.Study, trial: optuna.Trial, **kwargs: Any) -> bool:
+        try:
+            study.tell(trial, **kwargs)
+            return True
+        except (optuna.exceptions.UpdateFinishedTrialError, ValueError, RuntimeError) as exc:
+            self.log(f"trial {trial.number} was already closed elsewhere ({exc}); result dropped")
+            return False
+
+    def fail(
+        self,
+        study: optuna.Study,
+        trial: optuna.Trial,
+        row: dict[str, Any],
+        error: str,
+        *,
+        retry: bool,
+    ) -> None:
+        """Record a failed trial, give its ticket back and retry its parameters (at most 2×)."""
+        if not self._tell(study, trial, state=TrialState.FAIL):
+            return
+        self.store.return_ticket(self.job_id)
+        n_fail = self.store.add_failure(self.job_id)
+        retries = int(trial.user_attrs.get("retries", 0))
+        row.update(state="failed", error=error[:2000], finished_at=time.time(), retries=retries)
+        self.store.record_trial(self.job_id, row)
+        self.log(f"trial {trial.number} failed ({n_fail} so far): {error[:300]}")
+        if retry and retries < MAX_RETRIES and "family" in row and row.get("params") is not None:
+            study.enqueue_trial(
+                {"family": row["family"], **row["params"]},
+                user_attrs={"retry_of": trial.number, "retries": retries + 1},
+            )
+
+    # ----------------------------------------------------------------- reaper
+    def reap(self, study: optuna.Study, *, force: bool = False) -> int:
+        """Fail RUNNING trials whose lease lapsed (their worker died); returns how many."""
+        lease = self.ctx.settings.lease_seconds
+        now = time.monotonic()
+        if not force and now - self._last_reap < lease:
+            return 0
+        self._last_reap = now
+        n = 0
+        for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+            if self.store.r.exists(self.store.keys.trial_lease(self.job_id, t._trial_id)):
+                continue
+            started = t.datetime_start.timestamp() if t.datetime_start else 0.0
+            if time.time() - started < 2 * lease:
+                continue  # just asked: its lease may not be written yet
+            try:
+                study._storage.set_trial_state_values(t._trial_id, TrialState.FAIL)
+            except Exception:  # closed in the meantime: race-tolerant
+                continue
+            n += 1
+            self.store.return_ticket(self.job_id)
+            self.store.add_failure(self.job_id)
+            family = str(t.params.get("family", "unknown"))
+            row = {
+                "number": t.number,
+                "family": family,
+                "state": "failed",
+                "params": {k: v for k, v in t.params.items() if k != "family"},
+                "error": "lease expired: its worker died or lost Redis",
+                "reaped": True,
+                "finished_at": time.time(),
+            }
+            self.store.record_trial(self.job_id, row)
+            self.log(f"trial {t.number} reaped (lease expired)")
+            retries = int(t.user_attrs.get("retries", 0))
+            if retries < MAX_RETRIES and "family" in t.params:
+                study.enqueue_trial(
+                    dict(t.params), user_attrs={"retry_of": t.number, "retries": retries + 1}
+                )
+        return n
+
+
+def describe(row: dict[str, Any]) -> str:
+    return json.dumps(row, default=str)

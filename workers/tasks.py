@@ -1,0 +1,67 @@
+"""RQ entry points: the allow-list of functions a tutti worker runs (nothing else, ever).
+
+Queue payloads are JSON (ids and small numbers) and not trusted: every argument is checked
+again here before use.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import traceback
+
+from service.keys import check_id
+from workers.context import current
+
+log = logging.getLogger(__name__)
+MAX_SHARD_ERRORS = 20
+
+
+def _shard_id(shard: object) -> int:
+    if isinstance(shard, bool) or not isinstance(shard, int) or not 0 <= shard < 1_000_000:
+        raise ValueError(f"shard: expected a small non-negative integer, got {shard!r}")
+    return shard
+
+
+def run_shard(job_id: str, shard: int) -> str:
+    """Run one search slice of ``job_id``; returns why the slice ended."""
+    from workers.search import Shard
+
+    job_id, shard = check_id(job_id), _shard_id(shard)
+    ctx = current()
+    lease_key = ctx.store.keys.shard_lease(job_id, shard)
+    from workers.search import Lease
+
+    with Lease(ctx, lease_key, ctx.settings.lease_seconds):
+        try:
+            return Shard(ctx, job_id, shard).run()
+        except Exception as exc:
+            return _shard_crashed(job_id, shard, exc)
+
+
+def _shard_crashed(job_id: str, shard: int, exc: Exception) -> str:
+    """An unexpected error in a slice: log it in the job and hand the slice on (bounded)."""
+    ctx = current()
+    text = f"shard {shard} error: {type(exc).__name__}: {exc}\n{traceback.format_exc()[-3000:]}"
+    log.error("job %s %s", job_id, text)
+    with contextlib.suppress(Exception):
+        ctx.store.log(job_id, f"[{ctx.name}] {text}")
+    n = int(ctx.store.r.hincrby(ctx.store.keys.job(job_id), "shard_errors", 1))
+    if n <= MAX_SHARD_ERRORS:
+        ctx.queue.enqueue_shard(job_id, shard, timeout=3600)
+        return "error"
+    ctx.store.set_field_once(job_id, "stop_reason", f"shard errors: {type(exc).__name__}: {exc}")
+    if ctx.store.shard_stopped(job_id) <= 0:
+        ctx.queue.enqueue_finalize(job_id, timeout=3600)
+    return "error"
+
+
+def finalize_job(job_id: str) -> str:
+    """Build library ensembles, refit the winner and commit the job's result (exactly once)."""
+    from workers.finalize import Finalizer
+    from workers.search import Lease
+
+    job_id = check_id(job_id)
+    ctx = current()
+    with Lease(ctx, ctx.store.keys.shard_lease(job_id, -1), ctx.settings.lease_seconds):
+        return Finalizer(ctx, job_id).run()

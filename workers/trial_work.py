@@ -1,0 +1,229 @@
+"""What the trial process does: evaluate a candidate on the folds, or refit the chosen one.
+
+Runs only inside the supervised child (``workers.child``). It reads the job's record and
+data from Redis (read-only) and never writes to the store: results go back to the worker.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import time
+import zipfile
+from dataclasses import dataclass
+from multiprocessing.connection import Connection
+from typing import Any
+
+import numpy as np
+from sklearn.pipeline import Pipeline
+
+from service.connection import connect
+from service.data import decode
+from service.keys import Keys
+from service.spec import Metric, SearchSpec
+from service.store import JobStore
+from workers import combining, ensembling, metrics
+from workers.datasets import Dataset, build_dataset
+from workers.evaluation import Pruned, cross_validate
+from workers.families import get_family
+
+
+@dataclass
+class _Entry:
+    key: tuple[str, str, str]
+    spec: SearchSpec
+    record: dict[str, Any]
+    data: Dataset
+
+
+class DataCache:
+    """The current job's decoded table, kept for the life of the process (one job at a time)."""
+
+    def __init__(self) -> None:
+        self._entry: _Entry | None = None
+        self._clients: dict[str, JobStore] = {}
+
+    def store(self, url: str, prefix: str) -> JobStore:
+        key = f"{prefix}|{url}"
+        if key not in self._clients:
+            self._clients[key] = JobStore(connect(url), Keys(prefix))
+        return self._clients[key]
+
+    def get(self, request: dict[str, Any]) -> _Entry:
+        store = self.store(request["redis_url"], request["prefix"])
+        record = store.job(request["job_id"])
+        key = (request["prefix"], request["job_id"], str(record["data"]))
+        if self._entry is not None and self._entry.key == key:
+            return self._entry
+        self._entry = None  # free the previous table before decoding the next
+        spec = SearchSpec.model_validate(record["spec"])
+        raw = store.get_data(str(record["data"]))
+        frame = decode(raw)
+        del raw
+        self._entry = _Entry(key, spec, record, build_dataset(frame, record, spec))
+        return self._entry
+
+
+def evaluate(
+    request: dict[str, Any], cache: DataCache, conn: Connection
+) -> tuple[str, dict[str, Any]]:
+    """Cross-validate the requested candidate, asking the worker after each fold."""
+    entry = cache.get(request)
+    family = get_family(request["family"])
+    ctx = entry.data.context(int(request["seed"]))
+    template = family.build(dict(request["params"]), ctx)
+
+    def on_fold(fold: int, score: float) -> bool:
+        conn.send(("fold", fold, score))
+        answer = conn.recv()
+        return bool(answer[0] == "go")
+
+    try:
+        ev = cross_validate(
+            template,
+            entry.data,
+            Metric(entry.spec.metric),
+            on_fold=on_fold,
+            fit_info=ensembling.best_iterations,
+        )
+        kind = "done"
+    except Pruned as stop:
+        ev = stop.args[0]
+        kind = "pruned"
+    return kind, {
+        "fold_scores": ev.fold_scores,
+        "oof": ev.oof.astype(np.float32) if kind == "done" else None,
+        "fit_seconds": ev.fit_seconds,
+        "predict_ms": ev.predict_ms_per_1000,
+        "fit_info": ev.fit_info,
+    }
+
+
+def _candidate(member: dict[str, Any], data: Dataset, seed: int) -> Any:
+    """Build one candidate and apply the stated refit rule for boosting rounds."""
+    family = get_family(member["family"])
+    ctx = data.context(seed)
+    est = family.build(dict(member["params"]), ctx)
+    per_path: dict[str, list[int]] = {}
+    for info in member.get("fit_info") or []:
+        for path, rounds in info.items():
+            per_path.setdefault(path, []).append(int(rounds))
+    if per_path:
+        n_all = len(data.search_rows)
+        est.set_params(
+            **{p: ensembling.refit_rounds(v, ctx.n_rows, n_all) for p, v in per_path.items()}
+        )
+    return est
+
+
+def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
+    """Fit the chosen candidate (or library ensemble) on all search rows; return skops bytes."""
+    import skops.io as sio
+
+    entry = cache.get(request)
+    data, spec = entry.data, entry.spec
+    seed = int(request["seed"])
+    members = request["members"]
+    combiner = request.get("combiner")
+    if combiner:
+        estimators = [(f"t{m['number']}", _candidate(m, data, seed)) for m in members]
+        cls = (
+            combining.LinearCombinerRegressor
+            if data.task == "regression"
+            else combining.LinearCombinerClassifier
+        )
+        model: Any = cls(
+            estimators,
+            mode=combiner["mode"],
+            weights=combiner.get("weights"),
+            coef=combiner.get("coef"),
+            intercept=combiner.get("intercept"),
+        )
+    else:
+        model = _candidate(members[0], data, seed)
+    pipe = Pipeline([("frame", ensembling.FrameNormalizer(schema=data.schema)), ("model", model)])
+    rows = data.search_rows
+    t0 = time.perf_counter()
+    pipe.fit(data.X.iloc[rows], data.y[rows])
+    fit_seconds = time.perf_counter() - t0
+    sample = data.X.iloc[rows[: min(1000, len(rows))]]
+    t1 = time.perf_counter()
+    pipe.predict(sample)
+    predict_ms = (time.perf_counter() - t1) * 1000.0 * 1000.0 / max(len(sample), 1)
+    holdout = None
+    hold = data.holdout_rows
+    if len(hold):
+        pred = metrics.predictions(pipe, data.X.iloc[hold], data.task, data.classes)
+        holdout = metrics.natural_score(Metric(spec.metric), data.y[hold], pred, data.classes)
+    blob = sio.dumps(pipe, compression=zipfile.ZIP_DEFLATED)
+    return {
+        "blob": blob,
+        "sha256": hashlib.sha256(blob).hexdigest(),
+        "fit_seconds": fit_seconds,
+        "predict_ms": predict_ms,
+        "holdout_score": holdout,
+        "untrusted": sorted(sio.get_untrusted_types(data=blob)),
+        "size_bytes": len(blob),
+    }
+
+
+def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
+    """Library ensembles over the kept out-of-fold predictions (no fold fits), scored honestly."""
+    from workers.library import build_library_ensembles
+
+    entry = cache.get(request)
+    data = entry.data
+    store = cache.store(request["redis_url"], request["prefix"])
+    blobs = store.library_members(request["job_id"], request["families"])
+    rows = data.scored_rows
+    members = {t: oof_array(b)[rows] for t, b in blobs.items()}
+    if len(members) < 2:
+        return []
+    out = []
+    for ens in build_library_ensembles(
+        members,
+        data.y[rows],
+        data.fold_ids[rows],
+        Metric(entry.spec.metric),
+        data.task,
+        data.classes,
+    ):
+        doc = ens.to_json()
+        if ens.method == "selection":
+            combiner = {"mode": "average", "weights": doc["weights"]}
+        elif data.task == "regression":  # non-negative least squares weights, no intercept
+            combiner = {"mode": "linear", "coef": doc["weights"], "intercept": 0.0}
+        else:
+            combiner = {
+                "mode": "logistic",
+                "coef": doc["meta_coef"],
+                "intercept": doc["meta_intercept"],
+            }
+        out.append(
+            {
+                "id": f"library-{ens.method}",
+                "method": ens.method,
+                "members": doc["member_trial_ids"],
+                "weights": doc["weights"],
+                "score": doc["honest_mean"],
+                "score_std": doc["honest_std"],
+                "fold_scores": doc["fold_scores"],
+                "in_sample_score": doc["in_sample_score"],
+                "combiner": combiner,
+            }
+        )
+    return out
+
+
+def oof_bytes(oof: np.ndarray) -> bytes:
+    """Out-of-fold predictions as ``.npy`` bytes (read back with ``allow_pickle=False``)."""
+    buf = io.BytesIO()
+    np.save(buf, np.ascontiguousarray(oof, dtype=np.float32), allow_pickle=False)
+    return buf.getvalue()
+
+
+def oof_array(blob: bytes) -> np.ndarray:
+    return np.load(io.BytesIO(blob), allow_pickle=False)
+
+
+__all__ = ["DataCache", "evaluate", "oof_array", "oof_bytes", "refit"]
