@@ -194,6 +194,68 @@ def cmd_delete(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_extend(args: argparse.Namespace) -> int:
+    job = (
+        _client(args)
+        .job(args.job)
+        .extend(more_trials=args.more_trials, wall_seconds=args.wall_seconds)
+    )
+    print(f"{job.id}: queued again ({job.status()['budget']} trials in all)")
+    return 0
+
+
+def cmd_purge(args: argparse.Namespace) -> int:
+    gone = _client(args).purge(_duration(args.older_than))
+    print(f"deleted {len(gone)} job(s)" + (": " + ", ".join(gone) if gone else ""))
+    return 0
+
+
+def _duration(text: str) -> float:
+    units = {"s": 1, "m": 60, "h": 3600, "d": 86400, "w": 604800}
+    try:
+        if text[-1] in units:
+            return float(text[:-1]) * units[text[-1]]
+        return float(text)
+    except (ValueError, IndexError):
+        raise SystemExit(
+            f"--older-than {text!r}: use a number with s, m, h, d or w, e.g. 30d"
+        ) from None
+
+
+def cmd_workers(args: argparse.Namespace) -> int:
+    import time
+
+    rows = []
+    for w in _client(args).workers():
+        doing = (
+            f"job {w['job']} trial {w.get('trial')} ({w.get('family')})"
+            if w.get("job")
+            else "idle"
+        )
+        rows.append(
+            [
+                str(w["name"]),
+                str(w.get("host", "")),
+                str(w.get("pid", "")),
+                doing,
+                f"{time.time() - float(w.get('started_at', time.time())):.0f} s",
+            ]
+        )
+    if not rows:
+        print("no live workers: start some with `tutti worker --processes N`")
+        return 0
+    _print_table(rows, ["worker", "host", "pid", "doing", "up"])
+    return 0
+
+
+def cmd_doctor(args: argparse.Namespace) -> int:
+    client = _client(args)
+    findings = client.doctor()
+    for f in findings:
+        print(f"[{f.level:7}] {f.check}: {f.detail}")
+    return 1 if any(f.level == "problem" for f in findings) else 0
+
+
 def cmd_server(args: argparse.Namespace) -> int:
     from service.config import Settings
     from service.server import EmbeddedServer
@@ -300,6 +362,22 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--tail", type=int, default=200)
     s.set_defaults(func=cmd_logs)
 
+    s = sub.add_parser("extend", help="continue a finished or cancelled job, then refit")
+    s.add_argument("job")
+    s.add_argument("--more-trials", dest="more_trials", type=int, default=None)
+    s.add_argument("--wall-seconds", dest="wall_seconds", type=float, default=None)
+    s.set_defaults(func=cmd_extend)
+
+    s = sub.add_parser("purge", help="delete final jobs older than a duration")
+    s.add_argument("--older-than", dest="older_than", required=True, help="e.g. 30d, 12h")
+    s.set_defaults(func=cmd_purge)
+
+    s = sub.add_parser("workers", help="live workers and what each is doing")
+    s.set_defaults(func=cmd_workers)
+
+    s = sub.add_parser("doctor", help="check the Redis server's settings")
+    s.set_defaults(func=cmd_doctor)
+
     s = sub.add_parser("server", help="the embedded Redis server")
     s.add_argument("action", choices=["status", "start", "stop"])
     s.set_defaults(func=cmd_server)
@@ -320,9 +398,11 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     parser = build_parser()
-    # `tutti worker …` hands every following option to the worker launcher untouched
-    if "worker" in argv:
-        i = argv.index("worker")
+    # `tutti [--redis-url U] [--prefix P] worker …` hands what follows to the worker launcher
+    i = 0
+    while i < len(argv) and argv[i] in ("--redis-url", "--prefix"):
+        i += 2
+    if i < len(argv) and argv[i] == "worker":
         head, rest = argv[:i], argv[i + 1 :]
         args = parser.parse_args([*head, "status"])
         if args.redis_url and "--redis-url" not in rest:

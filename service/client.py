@@ -147,6 +147,33 @@ class Client:
         out = open(log_path, "ab") if log_path else subprocess.DEVNULL  # noqa: SIM115
         return subprocess.Popen(cmd, stdout=out, stderr=subprocess.STDOUT)
 
+    def purge(self, older_than_seconds: float) -> list[str]:
+        """Delete every finished, failed or cancelled job submitted before the cut-off."""
+        cut = time.time() - older_than_seconds
+        gone = []
+        for job in self.jobs():
+            rec = job.record()
+            if JobState(rec["state"]).terminal and float(rec.get("created_at", 0)) < cut:
+                job.delete()
+                gone.append(job.id)
+        return gone
+
+    def workers(self) -> list[dict[str, Any]]:
+        """Live worker processes and what each is doing (from their heartbeat keys)."""
+        out = []
+        pattern = self.keys.worker_alive("*")
+        for key in self.redis.scan_iter(match=pattern, count=500):
+            raw = self.redis.get(key)
+            if raw:
+                out.append(json.loads(raw))
+        return sorted(out, key=lambda w: str(w.get("name")))
+
+    def doctor(self) -> list[Any]:
+        """Checks of the Redis server this client points at (see ``service.doctor``)."""
+        from service.doctor import diagnose
+
+        return diagnose(self.redis, self.url, embedded=not self.settings.redis_url)
+
     def close(self) -> None:
         self.redis.close()
 
@@ -384,17 +411,33 @@ class Job:
         return True
 
     def delete(self) -> int:
+        """Remove the job's record, trials, journal, predictions and artifacts."""
         return self.store.delete_job(self.id)
+
+    def extend(self, *, more_trials: int | None = None, wall_seconds: float | None = None) -> Job:
+        """Continue a finished, cancelled or failed job on the same study, then finalize again.
+
+        Args:
+            more_trials: trials to add to the budget (default: the original ``max_trials``).
+            wall_seconds: wall-clock budget of the continuation (default: the original).
+        """
+        spec = self.spec()
+        done = self.store.tickets(self.id)
+        extra = spec.max_trials if more_trials is None else more_trials
+        new = parse_spec(
+            spec.model_dump(mode="json"),
+            max_trials=done + extra,
+            wall_seconds=wall_seconds or spec.wall_seconds,
+        )
+        self.store.reopen(self.id, new.to_json(), shards=new.parallelism)
+        timeout = self.client.settings.shard_seconds + new.trial_timeout + SHARD_TIMEOUT_SLACK
+        for shard in range(new.parallelism):
+            self.client.queue.enqueue_shard(self.id, shard, timeout=timeout)
+        return self
 
 
 def _members(row: dict[str, Any]) -> str:
-    params = row.get("params") or {}
-    names = [
-        str(v)
-        for k, v in params.items()
-        if k.endswith((".learner", ".members", ".estimators", ".kind"))
-    ]
-    return ",".join(names)
+    return str(row.get("members") or "")
 
 
 def progress_line(st: dict[str, Any]) -> str:

@@ -452,6 +452,57 @@ class JobStore:
                     continue
         raise JobStateError(f"job {job_id}: could not commit finalize (store too busy); retry.")
 
+    def reopen(self, job_id: str, spec_json: str, *, shards: int) -> int:
+        """Re-open a finished, cancelled or failed job for more search; returns the new epoch.
+
+        The study, trials and leaderboard stay; the budget counters continue; the wall clock
+        restarts; finalize commits again under the new epoch.
+        """
+        key = self.keys.job(job_id)
+        for _ in range(50):
+            with self.r.pipeline(transaction=True) as pipe:
+                try:
+                    pipe.watch(key)
+                    cur = JobState(_text(pipe.hget(key, "state") or b"queued"))
+                    if cur not in (JobState.FINISHED, JobState.CANCELLED, JobState.FAILED):
+                        raise JobStateError(
+                            f"job {job_id} is {cur.value}; only finished, cancelled or failed "
+                            "jobs can be extended.",
+                            field="state",
+                            value=cur.value,
+                        )
+                    epoch = int(_text(pipe.hget(key, "epoch") or b"0")) + 1
+                    now = _now()
+                    pipe.multi()
+                    pipe.hdel(key, "stop_reason", "started_at", "reason", "slices", "shard_errors")
+                    pipe.hset(
+                        key,
+                        mapping={
+                            "state": JobState.QUEUED.value,
+                            "spec": spec_json,
+                            "epoch": str(epoch),
+                            "queued_at": repr(now),
+                        },
+                    )
+                    pipe.set(self.keys.live_shards(job_id), shards)
+                    pipe.set(self.keys.failures(job_id), 0)
+                    pipe.rpush(
+                        self.keys.job_events(job_id),
+                        json.dumps(
+                            {
+                                "state": "queued",
+                                "at": now,
+                                "from": cur.value,
+                                "reason": f"extended (epoch {epoch})",
+                            }
+                        ),
+                    )
+                    pipe.execute()
+                    return epoch
+                except redis.WatchError:
+                    continue
+        raise JobStateError(f"job {job_id}: could not extend (store too busy); retry.")
+
     # ------------------------------------------------------------------ logs, deletion
     def log(self, job_id: str, line: str) -> None:
         pipe = self.r.pipeline(transaction=False)

@@ -82,7 +82,7 @@ def _child_main(conn: Connection, threads: int) -> None:
 
     die_with_parent()
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the worker decides when we stop
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)  # a trial is never cut short by TERM
     limit_threads(threads)
     from workers import trial_work  # heavy imports after the thread limits
 

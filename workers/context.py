@@ -26,6 +26,7 @@ class WorkerContext:
     name: str
     threads: int = 1
     stop: threading.Event = field(default_factory=threading.Event)
+    doing: dict[str, object] = field(default_factory=dict)
 
     @classmethod
     def create(

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import json
 import logging
 import multiprocessing as mp
 import os
@@ -24,6 +25,7 @@ from typing import Any
 
 log = logging.getLogger("tutti.worker")
 SWEEP_SECONDS = 30.0
+HEARTBEAT_SECONDS = 2.0
 
 
 @dataclass(frozen=True)
@@ -130,12 +132,36 @@ def worker_main(opts: dict[str, Any]) -> None:
         name=ctx.name,
     )
 
+    started = time.time()
+
+    def heartbeat() -> None:
+        doc = {
+            "name": ctx.name,
+            "host": os.uname().nodename,
+            "pid": os.getpid(),
+            "started_at": started,
+            "updated_at": time.time(),
+            **ctx.doing,
+        }
+        ctx.store.r.set(
+            ctx.store.keys.worker_alive(ctx.name),
+            json.dumps(doc, default=str),
+            ex=int(3 * HEARTBEAT_SECONDS) + 1,
+        )
+
     def sweeper() -> None:
-        while not ctx.stop.wait(SWEEP_SECONDS):
+        interval = min(SWEEP_SECONDS, max(2.0, ctx.settings.lease_seconds))
+        last_sweep = 0.0
+        while not ctx.stop.wait(HEARTBEAT_SECONDS):
             with contextlib.suppress(Exception):
-                sweep(ctx)
+                heartbeat()
+            if time.monotonic() - last_sweep >= interval:
+                last_sweep = time.monotonic()
+                with contextlib.suppress(Exception):
+                    sweep(ctx)
 
     with contextlib.suppress(Exception):
+        heartbeat()
         sweep(ctx)
     threading.Thread(target=sweeper, daemon=True, name="tutti-sweep").start()
     try:
@@ -152,6 +178,8 @@ def worker_main(opts: dict[str, Any]) -> None:
     finally:
         ctx.stop.set()
         ctx.trials.close()
+        with contextlib.suppress(Exception):
+            ctx.store.r.delete(ctx.store.keys.worker_alive(ctx.name))
 
 
 def parser() -> argparse.ArgumentParser:

@@ -168,6 +168,7 @@ class Shard:
                 break
             self.reap(study)
             self.run_trial(study)
+        self.ctx.doing.clear()
         self.hand_over(reason)
         return reason
 
@@ -230,6 +231,7 @@ class Shard:
         t0 = time.time()
         row: dict[str, Any] = {
             "number": trial.number,
+            "retry_of": trial.user_attrs.get("retry_of"),
             "shard": self.shard,
             "worker": self.ctx.name,
             "started_at": t0,
@@ -247,6 +249,9 @@ class Shard:
             )
             return
         row.update(family=family, params=params)
+        self.ctx.doing.update(
+            job=self.job_id, shard=self.shard, trial=trial.number, family=family, since=time.time()
+        )
         request = {
             "redis_url": self.ctx.url,
             "prefix": self.ctx.settings.prefix,
@@ -254,6 +259,7 @@ class Shard:
             "family": family,
             "params": params,
             "seed": self.spec.seed,
+            "trial": trial.number,
             "memory_mb": self.spec.memory_limit_mb,
         }
         scores: list[float] = []
@@ -264,6 +270,8 @@ class Shard:
             if self.store.state(self.job_id) is JobState.CANCELLED:
                 row["note"] = "cancelled"
                 return False
+            if len(scores) >= self.spec.folds:
+                return True  # every fold is done: a complete trial is never pruned
             return not trial.should_prune()
 
         lease_key = self.store.keys.trial_lease(self.job_id, trial._trial_id)
@@ -279,6 +287,7 @@ class Shard:
             self.fail(study, trial, row, detail, retry=True)
             return
         row.update(
+            members=result.get("members", ""),
             fold_scores=result["fold_scores"],
             fit_seconds=result["fit_seconds"],
             predict_ms=result["predict_ms"],
@@ -341,6 +350,18 @@ class Shard:
             )
 
     # ----------------------------------------------------------------- reaper
+    def store_settled(self, lease: float) -> bool:
+        """False for one lease period after Redis restarted: live trials must renew first.
+
+        Redis expiries are wall-clock, so an outage longer than the lease expires every lease;
+        reaping right after the restart would fail trials that are still running.
+        """
+        try:
+            uptime = float(self.store.r.info("server").get("uptime_in_seconds", 1e9))
+        except Exception:
+            return False
+        return uptime >= 2 * lease
+
     def reap(self, study: optuna.Study, *, force: bool = False) -> int:
         """Fail RUNNING trials whose lease lapsed (their worker died); returns how many."""
         lease = self.ctx.settings.lease_seconds
@@ -348,6 +369,8 @@ class Shard:
         if not force and now - self._last_reap < lease:
             return 0
         self._last_reap = now
+        if not self.store_settled(lease):
+            return 0
         n = 0
         for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
             if self.store.r.exists(self.store.keys.trial_lease(self.job_id, t._trial_id)):

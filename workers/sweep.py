@@ -51,20 +51,16 @@ def sweep(ctx: WorkerContext) -> int:
             continue
         running = _running_shards(ctx, job_id)
         queued = queue.queued_for(job_id)
-        if running or queued:
-            continue
         live = store.live_shards(job_id)
         if state in (JobState.QUEUED, JobState.RUNNING) and live > 0:
-            if _suspect(ctx, job_id, "shards"):
-                record = store.job(job_id)
-                for i in range(live):
+            missing = live - running - queued
+            if missing > 0 and _suspect(ctx, job_id, f"shards{missing}"):
+                for i in range(missing):
                     queue.enqueue_shard(job_id, 1000 + i, timeout=3600)
-                fixed += live
-                store.log(job_id, f"[{ctx.name}] sweep: re-enqueued {live} lost shard(s)")
-                log.warning(
-                    "job %s: re-enqueued %d lost shards (%s)", job_id, live, record.get("state")
-                )
-        elif _suspect(ctx, job_id, "finalize"):
+                fixed += missing
+                store.log(job_id, f"[{ctx.name}] sweep: re-enqueued {missing} lost shard(s)")
+                log.warning("job %s: re-enqueued %d lost shard(s)", job_id, missing)
+        elif not running and not queued and _suspect(ctx, job_id, "finalize"):
             queue.enqueue_finalize(job_id, timeout=3600)
             fixed += 1
             store.log(job_id, f"[{ctx.name}] sweep: re-enqueued finalize")

@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import hashlib
 import io
+import json
+import os
 import time
 import zipfile
 from dataclasses import dataclass
@@ -72,8 +74,13 @@ def evaluate(
     family = get_family(request["family"])
     ctx = entry.data.context(int(request["seed"]))
     template = family.build(dict(request["params"]), ctx)
+    _inject_fault(request)
+
+    fold_pause = _fold_pause()
 
     def on_fold(fold: int, score: float) -> bool:
+        if fold_pause:
+            time.sleep(fold_pause)
         conn.send(("fold", fold, score))
         answer = conn.recv()
         return bool(answer[0] == "go")
@@ -96,7 +103,60 @@ def evaluate(
         "fit_seconds": ev.fit_seconds,
         "predict_ms": ev.predict_ms_per_1000,
         "fit_info": ev.fit_info,
+        "members": describe_members(template),
     }
+
+
+def _short(est: Any) -> str:
+    name = type(est).__name__
+    inner = getattr(est, "estimator", None)
+    if inner is not None and not isinstance(inner, str):
+        return f"{name}({_short(_last_step(inner))})"
+    return name
+
+
+def _last_step(est: Any) -> Any:
+    while isinstance(est, Pipeline):
+        est = est.steps[-1][1]
+    return est
+
+
+def describe_members(est: Any) -> str:
+    """Human-readable members of a candidate: member names for composites, else the model."""
+    model = _last_step(est)
+    members = getattr(model, "estimators", None)
+    if isinstance(members, list) and members and isinstance(members[0], tuple):
+        return ",".join(str(name) for name, m in members if m != "drop")
+    return _short(model)
+
+
+def _inject_fault(request: dict[str, Any]) -> None:
+    """Test-only fault injection (``TUTTI_FAULT_INJECT``): raise, sleep or allocate on cue.
+
+    The variable holds JSON such as ``{"raise": [3], "sleep": {"5": 30}, "alloc_mb": {"7": 4096},
+    "sleep_all": 1.5}`` keyed by trial number; it is read only in the trial process and
+    ignored when unset.
+    """
+    raw = os.environ.get("TUTTI_FAULT_INJECT")
+    if not raw:
+        return
+    plan = json.loads(raw)
+    n = str(request.get("trial"))
+    if n in {str(t) for t in plan.get("raise", [])}:
+        raise RuntimeError(f"injected fault in trial {n}")
+    if n in plan.get("sleep", {}):
+        time.sleep(float(plan["sleep"][n]))
+    if plan.get("sleep_all"):
+        time.sleep(float(plan["sleep_all"]))
+    if n in plan.get("alloc_mb", {}):
+        hog = bytearray(int(plan["alloc_mb"][n]) * 1024 * 1024)
+        hog[::4096] = b"x" * len(hog[::4096])
+
+
+def _fold_pause() -> float:
+    """Test-only: ``{"sleep_fold": seconds}`` in ``TUTTI_FAULT_INJECT`` slows every fold."""
+    raw = os.environ.get("TUTTI_FAULT_INJECT")
+    return float(json.loads(raw).get("sleep_fold", 0.0)) if raw else 0.0
 
 
 def _candidate(member: dict[str, Any], data: Dataset, seed: int) -> Any:
