@@ -1,0 +1,284 @@
+"""Faults a night-long search must survive, with real processes and a real Redis.
+
+Leases are short here (seconds) so the tests run in seconds, not in RQ's minute-long floors.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import optuna
+import pandas as pd
+import psutil
+import pytest
+import redis
+from optuna.trial import TrialState
+from sklearn.datasets import load_breast_cancer
+
+from service.client import Client
+from tests.conftest import RedisProcess, start_workers
+from workers.journal import journal_storage
+
+pytestmark = pytest.mark.integration
+FAST = {"TUTTI_LEASE_SECONDS": "3", "TUTTI_SHARD_SECONDS": "10"}
+
+
+def _frame() -> pd.DataFrame:
+    return load_breast_cancer(as_frame=True).frame.rename(columns={"target": "benign"})
+
+
+def wait_until(cond: Callable[[], Any], timeout: float, every: float = 0.2) -> Any:
+    end = time.monotonic() + timeout
+    while time.monotonic() < end:
+        got = cond()
+        if got:
+            return got
+        time.sleep(every)
+    raise AssertionError(f"condition not met within {timeout} s")
+
+
+def _study_states(client: Client, job_id: str) -> list[TrialState]:
+    storage = journal_storage(client.redis, client.keys.journal(job_id))
+    study = optuna.load_study(study_name=job_id, storage=storage)
+    return [t.state for t in study.get_trials(deepcopy=False)]
+
+
+def _tree(pid: int) -> list[int]:
+    try:
+        proc = psutil.Process(pid)
+        return [pid, *(c.pid for c in proc.children(recursive=True))]
+    except psutil.NoSuchProcess:
+        return []
+
+
+def _alive(pids: list[int]) -> list[int]:
+    out = []
+    for p in pids:
+        try:
+            if psutil.Process(p).status() != psutil.STATUS_ZOMBIE:
+                out.append(p)
+        except psutil.NoSuchProcess:
+            pass
+    return out
+
+
+def _busy_worker(client: Client, pids: dict[int, Any]) -> tuple[int, dict[str, Any]] | None:
+    """A (launcher pid, heartbeat) of a worker that is running a trial right now."""
+    for w in client.workers():
+        if w.get("trial") is None:
+            continue
+        for launcher in pids:
+            if w["pid"] in _tree(launcher):
+                return launcher, w
+    return None
+
+
+def test_worker_killed_mid_trial_repeatedly(client: Client, redis_url: str, prefix: str,
+                                            tmp_path: Path) -> None:
+    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.4})}
+    job = client.submit(_frame(), target="benign", max_trials=30, parallelism=3, seed=1,
+                        families=["boosting", "single"], wall_seconds=900, trial_timeout=120)
+    procs = {}
+    for i in range(3):
+        p = start_workers(redis_url, prefix, 1, via_cli=True, env=env,
+                          log=tmp_path / f"w{i}.log")
+        procs[p.pid] = p
+    kills = []
+    try:
+        for _ in range(3):
+            launcher, beat = wait_until(lambda: _busy_worker(client, procs), 60)
+            victims = _tree(launcher)
+            os.killpg(launcher, signal.SIGKILL)  # the whole process tree, as a machine loss
+            killed_at = time.monotonic()
+            procs.pop(launcher).wait(10)
+            kills.append((beat["trial"], killed_at, victims))
+            p = start_workers(redis_url, prefix, 1, via_cli=True, env=env,
+                              log=tmp_path / f"w{len(kills) + 3}.log")
+            procs[p.pid] = p
+            time.sleep(2)
+        for trial, killed_at, victims in kills:
+            def failed(t: int = trial) -> bool:
+                rows = {r["number"]: r for r in client.store.trial_rows(job.id)}
+                return t in rows and rows[t]["state"] in ("failed", "complete", "pruned")
+
+            wait_until(failed, 60)
+            row = {r["number"]: r for r in client.store.trial_rows(job.id)}[trial]
+            # the killed trial was failed by the reaper (lease expired) within 60 s
+            assert row["state"] == "failed" and row.get("reaped"), row
+            assert time.monotonic() - killed_at < 90
+            time.sleep(max(0.0, 10 - (time.monotonic() - killed_at)))
+            assert _alive(victims) == [], "a descendant of a killed worker survived"
+        status = job.wait(timeout=600)
+    finally:
+        for p in procs.values():
+            p.wait(timeout=120)
+    assert status["state"] == "finished", job.logs()[-20:]
+    rows = client.store.trial_rows(job.id)
+    assert sum(r["state"] in ("complete", "pruned") for r in rows) == 30
+    retried = {r.get("retry_of") for r in rows if r.get("retry_of") is not None}
+    assert {t for t, _, _ in kills} <= retried  # every killed trial was retried
+    states = _study_states(client, job.id)
+    assert TrialState.RUNNING not in states
+    assert len(rows) == len(states)  # trial numbers unique, one row per study trial
+
+
+def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None:
+    server = RedisProcess(tmp_path / "redis")
+    server.dir.mkdir()
+    server.start()
+    prefix = "rk"
+    client = Client(url=server.url, prefix=prefix)
+    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.5})}
+    job = client.submit(_frame(), target="benign", max_trials=12, parallelism=2, seed=2,
+                        families=["boosting"], wall_seconds=900, trial_timeout=120)
+    workers = start_workers(server.url, prefix, 2, env=env, log=tmp_path / "w.log")
+    try:
+        wait_until(lambda: client.store.board(job.id), 120)
+        wait_until(lambda: any(w.get("trial") is not None for w in client.workers()), 60)
+        before = {r["number"]: r for r in client.store.trial_rows(job.id)
+                  if r["state"] == "complete"}
+        server.kill()  # kill -9 while trials are between ask and tell
+        time.sleep(8)  # longer than the 3 s lease: every lease expires
+        server.start()  # same port, same files
+        status = job.wait(timeout=600)
+    finally:
+        workers.wait(timeout=180)
+        server.kill()
+    log = (tmp_path / "w.log").read_text()
+    assert status["state"] == "finished", (job.logs()[-20:], log[-3000:])
+    after = {r["number"]: r for r in client.store.trial_rows(job.id)}
+    for n, row in before.items():  # no completed trial lost
+        assert after[n]["state"] == "complete" and after[n]["score"] == row["score"]
+    assert sum(r["state"] in ("complete", "pruned") for r in after.values()) == 12
+    assert TrialState.RUNNING not in _study_states(client, job.id)
+    assert client.store.get_artifact(job.id) is not None
+
+
+def test_sigterm_finishes_the_current_trial_and_exits(client: Client, redis_url: str,
+                                                      prefix: str, tmp_path: Path) -> None:
+    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.6})}
+    job = client.submit(_frame(), target="benign", max_trials=8, parallelism=1, seed=3,
+                        families=["boosting"], wall_seconds=900, trial_timeout=120)
+    w = start_workers(redis_url, prefix, 1, burst=False, env=env, log=tmp_path / "w.log")
+    beat = wait_until(lambda: next((x for x in client.workers() if x.get("trial") is not None),
+                                   None), 90)
+    os.kill(w.pid, signal.SIGTERM)
+    assert w.wait(timeout=60) is not None
+    rows = {r["number"]: r for r in client.store.trial_rows(job.id)}
+    assert rows[beat["trial"]]["state"] in ("complete", "pruned", "failed")
+    assert TrialState.RUNNING not in _study_states(client, job.id)
+    # nothing lost: another worker picks the job up and finishes it
+    w2 = start_workers(redis_url, prefix, 1, env=env, log=tmp_path / "w2.log")
+    try:
+        status = job.wait(timeout=300)
+    finally:
+        w2.wait(timeout=120)
+    assert status["state"] == "finished"
+    assert sum(r["state"] in ("complete", "pruned") for r in client.store.trial_rows(job.id)) == 8
+
+
+def test_candidates_that_raise_time_out_or_exhaust_memory_fail_cleanly(
+        client: Client, redis_url: str, prefix: str, tmp_path: Path) -> None:
+    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps(
+        {"raise": [1], "sleep": {"2": 60}, "alloc_mb": {"3": 6000}})}
+    job = client.submit(_frame(), target="benign", max_trials=8, parallelism=1, seed=4,
+                        families=["single"], wall_seconds=900, trial_timeout=8,
+                        memory_limit_mb=1500)
+    w = start_workers(redis_url, prefix, 1, env=env, log=tmp_path / "w.log")
+    try:
+        status = job.wait(timeout=300)
+    finally:
+        w.wait(timeout=120)
+    assert status["state"] == "finished"
+    rows = {r["number"]: r for r in client.store.trial_rows(job.id)}
+    assert rows[1]["state"] == "failed" and "injected fault" in rows[1]["error"]
+    assert rows[2]["state"] == "failed" and "timeout" in rows[2]["error"]
+    assert rows[3]["state"] == "failed" and "MemoryError" in rows[3]["error"]
+    assert sum(r["state"] in ("complete", "pruned") for r in rows.values()) == 8
+    # trial 1's parameters were retried as trial 2 and again as trial 3, then no more:
+    # a failed trial's parameters are retried at most twice
+    assert rows[2]["retry_of"] == 1 and rows[3]["retry_of"] == 2
+    assert all(r.get("retry_of") != 3 for r in rows.values())
+
+
+def test_cancel_stops_workers_within_a_fold_and_keeps_best_so_far(
+        client: Client, redis_url: str, prefix: str, tmp_path: Path) -> None:
+    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 1.0})}
+    job = client.submit(_frame(), target="benign", max_trials=200, parallelism=2, seed=5,
+                        families=["single"], wall_seconds=900, trial_timeout=120)
+    w = start_workers(redis_url, prefix, 2, env=env, log=tmp_path / "w.log")
+    try:
+        wait_until(lambda: len(client.store.board(job.id)) >= 2, 180)
+        t0 = time.monotonic()
+        assert job.cancel()
+        wait_until(lambda: all(x.get("job") is None for x in client.workers()), 30, every=0.1)
+        idle_after = time.monotonic() - t0
+        status = job.wait(timeout=180)
+    finally:
+        w.wait(timeout=120)
+    assert idle_after < 1.0 + 2 * 2.0 + 1.0  # one fold (1 s) plus heartbeat lag (2 s)
+    assert status["state"] == "cancelled"
+    assert len(job.leaderboard()) >= 2
+    model = job.best_pipeline()  # finalize produced the best-so-far pipeline
+    assert model.predict(_frame().drop(columns="benign").head(3)).shape == (3,)
+
+
+def test_deadline_stops_the_search_in_time(client: Client, redis_url: str, prefix: str,
+                                           tmp_path: Path) -> None:
+    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.5})}
+    job = client.submit(_frame(), target="benign", max_trials=500, parallelism=1, seed=6,
+                        families=["single"], wall_seconds=25, trial_timeout=10)
+    w = start_workers(redis_url, prefix, 1, env=env, log=tmp_path / "w.log")
+    try:
+        status = job.wait(timeout=200)
+    finally:
+        w.wait(timeout=120)
+    rec = job.record()
+    assert status["state"] == "finished"
+    assert rec["stop_reason"] == "deadline"
+    # search stops early enough that finalize also ends by then (+ at most one trial timeout)
+    assert rec["finalized_at"] - rec["started_at"] <= 25 + 10
+
+
+def test_extend_continues_the_same_study_and_finalizes_again(
+        client: Client, redis_url: str, prefix: str, tmp_path: Path) -> None:
+    job = client.submit(_frame(), target="benign", max_trials=3, parallelism=1, seed=7,
+                        families=["single"], wall_seconds=600)
+    w = start_workers(redis_url, prefix, 1, env=FAST, log=tmp_path / "w.log")
+    w.wait(timeout=300)
+    assert job.status()["state"] == "finished"
+    first = job.artifact_meta()["created_at"]
+    job.extend(more_trials=3)
+    w = start_workers(redis_url, prefix, 1, env=FAST, log=tmp_path / "w2.log")
+    w.wait(timeout=300)
+    st = job.status()
+    assert st["state"] == "finished" and st["trials_done"] == 6
+    assert job.artifact_meta()["created_at"] > first
+    assert len(_study_states(client, job.id)) == 6
+
+
+def test_one_worker_and_a_fixed_seed_give_the_same_leaderboard(
+        redis_url: str, tmp_path: Path) -> None:
+    boards = []
+    for i in range(2):
+        prefix = f"det{i}{int(time.time())}"
+        client = Client(url=redis_url, prefix=prefix)
+        job = client.submit(_frame(), target="benign", max_trials=6, parallelism=1, seed=11,
+                            families=["boosting", "single"], wall_seconds=600)
+        w = start_workers(redis_url, prefix, 1, env={"TUTTI_SHARD_SECONDS": "600"},
+                          log=tmp_path / f"w{i}.log")
+        w.wait(timeout=300)
+        board = job.leaderboard()
+        boards.append(board[["candidate", "family", "roc_auc"]].reset_index(drop=True))
+        r = redis.Redis.from_url(redis_url)
+        for pattern in (f"{prefix}:*", f"rq:*{prefix}-*"):
+            keys = list(r.scan_iter(match=pattern))
+            if keys:
+                r.delete(*keys)
+    pd.testing.assert_frame_equal(boards[0], boards[1])
