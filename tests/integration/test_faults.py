@@ -147,17 +147,19 @@ def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None
         time.sleep(8)  # longer than the 3 s lease: every lease expires
         server.start()  # same port, same files
         status = job.wait(timeout=600)
-    finally:
         workers.wait(timeout=180)
+        log = (tmp_path / "w.log").read_text()
+        assert status["state"] == "finished", (job.logs()[-20:], log[-3000:])
+        after = {r["number"]: r for r in client.store.trial_rows(job.id)}
+        for n, row in before.items():  # no completed trial lost
+            assert after[n]["state"] == "complete" and after[n]["score"] == row["score"]
+        assert sum(r["state"] in ("complete", "pruned") for r in after.values()) == 12
+        assert TrialState.RUNNING not in _study_states(client, job.id)
+        assert client.store.get_artifact(job.id) is not None
+    finally:
+        if workers.poll() is None:
+            workers.kill()
         server.kill()
-    log = (tmp_path / "w.log").read_text()
-    assert status["state"] == "finished", (job.logs()[-20:], log[-3000:])
-    after = {r["number"]: r for r in client.store.trial_rows(job.id)}
-    for n, row in before.items():  # no completed trial lost
-        assert after[n]["state"] == "complete" and after[n]["score"] == row["score"]
-    assert sum(r["state"] in ("complete", "pruned") for r in after.values()) == 12
-    assert TrialState.RUNNING not in _study_states(client, job.id)
-    assert client.store.get_artifact(job.id) is not None
 
 
 def test_sigterm_finishes_the_current_trial_and_exits(client: Client, redis_url: str,
