@@ -113,23 +113,33 @@ def cmd_status(args: argparse.Namespace) -> int:
 def _print_board(board: Any, limit: int | None = None) -> None:
     metric = board.attrs.get("metric", "score")
     print(f"metric: {metric} ({board.attrs.get('direction', '')})")
+    has_sig = "p_value" in board.columns
     rows = []
     for _, r in board.head(limit).iterrows() if limit else board.iterrows():
-        rows.append(
-            [
-                str(r["rank"]),
-                str(r["candidate"]),
-                str(r["family"]),
-                str(r["members"])[:40],
-                _fmt(r[metric]),
-                _fmt(r[f"{metric}_std"]),
-                _fmt(r["fit_seconds"], 2),
-                _fmt(r["predict_ms_per_1000"], 1),
-            ]
+        row = [
+            str(r["rank"]),
+            str(r["candidate"]),
+            str(r["family"]),
+            str(r["members"])[:40],
+            _fmt(r[metric]),
+            _fmt(r[f"{metric}_std"]),
+            _fmt(r["fit_seconds"], 2),
+            _fmt(r["predict_ms_per_1000"], 1),
+        ]
+        if has_sig:
+            p = r.get("p_value")
+            flag = "" if p is None or p != p else ("" if r.get("distinguishable") else " ≈#1")
+            row.append(_fmt(p, 3) + flag)
+        rows.append(row)
+    header = ["rank", "candidate", "family", "members", metric, "± std", "fit s", "predict ms/1k"]
+    if has_sig:
+        header.append("p vs #1")
+    _print_table(rows, header)
+    if has_sig:
+        print(
+            "p vs #1: corrected repeated k-fold t-test against rank 1 (≈#1: not "
+            "distinguishable at 5%); not corrected for having picked the best of many."
         )
-    _print_table(
-        rows, ["rank", "candidate", "family", "members", metric, "± std", "fit s", "predict ms/1k"]
-    )
 
 
 def cmd_leaderboard(args: argparse.Namespace) -> int:
@@ -146,8 +156,14 @@ def cmd_leaderboard(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_report(args: argparse.Namespace) -> int:
+    path = _client(args).job(args.job).report(args.output)
+    print(f"wrote {path}")
+    return 0
+
+
 def cmd_export(args: argparse.Namespace) -> int:
-    path = _client(args).job(args.job).export(args.output)
+    path = _client(args).job(args.job).export(args.output, max_predict_ms=args.max_predict_ms)
     print(f"wrote {path} (+ {path.name}.json)")
     return 0
 
@@ -341,7 +357,19 @@ def build_parser() -> argparse.ArgumentParser:
     s = sub.add_parser("export", help="write a job's best pipeline to a skops file")
     s.add_argument("job")
     s.add_argument("-o", "--output", required=True)
+    s.add_argument(
+        "--max-predict-ms",
+        dest="max_predict_ms",
+        type=float,
+        default=None,
+        help="best pipeline predicting 1,000 rows within this many ms",
+    )
     s.set_defaults(func=cmd_export)
+
+    s = sub.add_parser("report", help="write a job's self-contained HTML report")
+    s.add_argument("job")
+    s.add_argument("-o", "--output", required=True)
+    s.set_defaults(func=cmd_report)
 
     s = sub.add_parser("predict", help="predict a CSV/Parquet file with an exported pipeline")
     s.add_argument("model")

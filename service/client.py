@@ -314,10 +314,12 @@ class Job:
                     "folds": len(r.get("fold_scores", [])),
                     "fit_seconds": float(r.get("fit_seconds", 0.0)),
                     "predict_ms_per_1000": float(r.get("predict_ms", 0.0)),
+                    "size_bytes": r.get("size_bytes"),
                     "trial": int(r["number"]),
                 }
             )
-        for ens in self.store.extras(self.id).get("library", []):
+        extras = self.store.extras(self.id)
+        for ens in extras.get("library", []):
             rows.append(
                 {
                     "candidate": ens["id"],
@@ -328,6 +330,7 @@ class Job:
                     "folds": len(ens.get("fold_scores", [])),
                     "fit_seconds": None,
                     "predict_ms_per_1000": None,
+                    "size_bytes": None,
                     "trial": None,
                 }
             )
@@ -341,6 +344,7 @@ class Job:
             "folds",
             "fit_seconds",
             "predict_ms_per_1000",
+            "size_bytes",
             "trial",
         ]
         if not rows:
@@ -353,6 +357,7 @@ class Job:
             board[f"{metric.value}_std"] = board.pop("std")
             board.insert(0, "rank", range(1, len(board) + 1))
             board = board[cols].reset_index(drop=True)
+            board = _with_explanations(board, extras.get("explain") or {})
         board.attrs.update(
             metric=metric.value,
             greater_is_better=sign > 0,
@@ -372,17 +377,50 @@ class Job:
             )
         return found
 
-    def best_pipeline(self) -> Any:
-        """The winner refitted on all rows: a scikit-learn estimator that takes raw rows."""
-        blob, meta = self._artifact()
+    def best_pipeline(self, max_predict_ms: float | None = None) -> Any:
+        """The winner refitted on all rows: a scikit-learn estimator that takes raw rows.
+
+        Args:
+            max_predict_ms: latency budget in milliseconds per 1,000 rows; the best refitted
+                candidate (winner or Pareto-front alternative) within it is returned.
+
+        Raises:
+            ArtifactError: no pipeline yet, none within the budget, or a failed integrity check.
+        """
+        blob, meta = self._artifact(self._name_within(max_predict_ms))
         return load_pipeline(blob, meta, key=self.client.settings.artifact_key)
+
+    def _name_within(self, max_predict_ms: float | None) -> str:
+        if max_predict_ms is None:
+            return "best"
+        options = []
+        for name in self.store.artifact_names(self.id):
+            found = self.store.get_artifact(self.id, name)
+            if found and float(found[1].get("predict_ms", float("inf"))) <= max_predict_ms:
+                options.append((float(found[1]["cv_score"]), name == "best", name))
+        if not options:
+            raise ArtifactError(
+                f"no refitted pipeline of job {self.id} predicts 1,000 rows within "
+                f"{max_predict_ms:g} ms; raise max_predict_ms or see the Pareto front in "
+                "`tutti report`.",
+                field="max_predict_ms",
+                value=max_predict_ms,
+            )
+        return max(options)[2]
+
+    def report(self, path: str | Path) -> Path:
+        """Write the self-contained HTML report of this job."""
+        from service.report import write_report
+        from service.report_data import collect
+
+        return write_report(collect(self), Path(path))
 
     def artifact_meta(self) -> dict[str, Any]:
         return self._artifact()[1]
 
-    def export(self, path: str | Path) -> Path:
+    def export(self, path: str | Path, *, max_predict_ms: float | None = None) -> Path:
         """Write the best pipeline as a skops file plus ``<file>.json`` metadata."""
-        blob, meta = self._artifact()
+        blob, meta = self._artifact(self._name_within(max_predict_ms))
         load_pipeline(blob, meta, key=self.client.settings.artifact_key)  # verify first
         out = Path(path)
         write_export(out, blob, meta)
@@ -434,6 +472,22 @@ class Job:
         for shard in range(new.parallelism):
             self.client.queue.enqueue_shard(self.id, shard, timeout=timeout)
         return self
+
+
+def _with_explanations(board: pd.DataFrame, explain: dict[str, Any]) -> pd.DataFrame:
+    """Join finalize's significance and bias/variance columns onto the board (when present)."""
+    sig = pd.DataFrame(explain.get("significance") or [])
+    if not sig.empty:
+        keep = [
+            c for c in ("candidate", "mean_diff", "p_value", "distinguishable") if c in sig.columns
+        ]
+        board = board.merge(
+            sig[keep].rename(columns={"mean_diff": "diff_vs_1"}), on="candidate", how="left"
+        )
+    bv = pd.DataFrame(explain.get("bias_variance") or [])
+    if not bv.empty:
+        board = board.merge(bv[["candidate", "bias", "variance"]], on="candidate", how="left")
+    return board
 
 
 def _members(row: dict[str, Any]) -> str:

@@ -101,6 +101,8 @@ def _child_main(conn: Connection, threads: int) -> None:
                     out = trial_work.evaluate(request, cache, conn)
                 elif kind == "library":
                     out = ("library_done", trial_work.library(request, cache))
+                elif kind == "explain":
+                    out = ("explain_done", trial_work.explain(request, cache))
                 elif kind == "refit":
                     out = ("refit_done", trial_work.refit(request, cache))
                 else:

@@ -15,7 +15,7 @@ import platform
 import time
 from typing import Any
 
-from service.spec import SearchSpec
+from service.spec import LOWER_IS_BETTER, SearchSpec
 from service.store import JobState
 from service.trusted import TRUSTED_TYPES
 from workers.child import ChildFailure, TrialCrashed
@@ -23,6 +23,9 @@ from workers.context import WorkerContext
 
 log = logging.getLogger(__name__)
 REFIT_TRIES = 3
+PARETO_REFITS = 3
+TOP_N = 5
+EXPLAIN_MAX_SECONDS = 900.0
 
 
 def versions() -> dict[str, str]:
@@ -113,18 +116,107 @@ class Finalizer:
             )
             return "failed" if ok else "duplicate"
         meta = artifacts["best"][1]
+        pareto = self.pareto(candidates, chosen, artifacts)
+        explained = self.explain(candidates, library, board)
         extras = {
             "library": library,
             "best": {k: chosen[k] for k in ("id", "kind", "family", "score")},
             "holdout_score": meta.get("holdout_score"),
             "finalize_seconds": time.time() - t0,
             "refit_errors": errors,
+            "pareto": pareto,
+            "explain": explained,
         }
         ok = self.store.commit_final(
             self.job_id, self.epoch, artifacts=artifacts, extras=extras, state=final
         )
         self.log(f"{'committed' if ok else 'duplicate, nothing changed'}: best {chosen['id']}")
         return "committed" if ok else "duplicate"
+
+    def time_left(self) -> float:
+        """Seconds until the job's hard deadline (generous when the job has none)."""
+        limits = []
+        started = self.record.get("started_at")
+        if started and self.spec.wall_seconds:
+            limits.append(float(started) + self.spec.wall_seconds)
+        if self.spec.deadline is not None:
+            limits.append(self.spec.deadline.timestamp())
+        if not limits:
+            return max(300.0, 2 * self.spec.trial_timeout)
+        return min(limits) - time.time()
+
+    def pareto(
+        self,
+        candidates: list[dict[str, Any]],
+        chosen: dict[str, Any],
+        artifacts: dict[str, tuple[bytes, dict[str, Any]]],
+    ) -> list[dict[str, Any]]:
+        """Score vs predict latency front; its best few members are refitted too."""
+        from workers.diagnostics import pareto_front
+
+        rows = self.store.board(self.job_id)
+        points = [
+            {
+                "id": f"t{r['number']}",
+                "score": float(r["score"]),
+                "predict_ms": float(r.get("predict_ms", float("nan"))),
+            }
+            for r in rows
+        ]
+        front = set(pareto_front(points))
+        by_id = {c["id"]: c for c in candidates}
+        refits = 0
+        for p in sorted(points, key=lambda q: -q["score"]):
+            if p["id"] not in front or p["id"] == chosen["id"] or refits >= PARETO_REFITS:
+                continue
+            if self.time_left() < 2 * self.spec.trial_timeout / 3:
+                break
+            try:
+                artifacts[f"pareto-{p['id']}"] = self.refit(by_id[p["id"]])
+                refits += 1
+            except (ChildFailure, TrialCrashed, ValueError) as exc:
+                self.log(f"pareto refit of {p['id']} failed: {exc}")
+        sign = -1.0 if self.spec.metric in LOWER_IS_BETTER else 1.0
+        return [
+            {
+                "candidate": p["id"],
+                "score": sign * p["score"],
+                "predict_ms": p["predict_ms"],
+                "on_front": p["id"] in front,
+            }
+            for p in points
+        ]
+
+    def explain(
+        self,
+        candidates: list[dict[str, Any]],
+        library: list[dict[str, Any]],
+        board: list[dict[str, Any]],
+    ) -> dict[str, Any]:
+        """Honest estimate, significance, bias/variance, diagnostics, leakage (time-bounded)."""
+        budget = min(max(self.time_left() * 0.6, 0.0), EXPLAIN_MAX_SECONDS)
+        top = [
+            {"id": c["id"], "family": c["family"], "params": c["members"][0]["params"]}
+            for c in candidates
+            if c["kind"] == "trial"
+        ][:TOP_N]
+        try:
+            _, out = self.ctx.trials.request(
+                "explain",
+                self.request(
+                    families=list(self.spec.family_names),
+                    top=top,
+                    library=library,
+                    scores={str(r["number"]): float(r["score"]) for r in board},
+                    dropped=self.record.get("dropped") or {},
+                    budget_seconds=budget,
+                ),
+                timeout=budget + max(self.spec.trial_timeout, 120.0),
+            )
+            return dict(out)
+        except (ChildFailure, TrialCrashed) as exc:
+            self.log(f"explanations skipped: {exc}")
+            return {"error": str(exc)}
 
     def commit_empty(self, final: JobState) -> str:
         rows = self.store.trial_rows(self.job_id)

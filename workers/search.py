@@ -288,6 +288,7 @@ class Shard:
             return
         row.update(
             members=result.get("members", ""),
+            size_bytes=result.get("size_bytes"),
             fold_scores=result["fold_scores"],
             fit_seconds=result["fit_seconds"],
             predict_ms=result["predict_ms"],

@@ -104,6 +104,7 @@ def evaluate(
         "predict_ms": ev.predict_ms_per_1000,
         "fit_info": ev.fit_info,
         "members": describe_members(template),
+        "size_bytes": ev.size_bytes,
     }
 
 
@@ -272,6 +273,43 @@ def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
                 "combiner": combiner,
             }
         )
+    return out
+
+
+def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
+    """Honest estimate, significance, bias/variance, diagnostics and leakage (time-bounded)."""
+    from workers import explain as ex
+
+    entry = cache.get(request)
+    data, metric = entry.data, Metric(entry.spec.metric)
+    seed = int(request["seed"])
+    budget = ex.Budget(float(request.get("budget_seconds", 300.0)))
+    store = cache.store(request["redis_url"], request["prefix"])
+    members = {
+        t: oof_array(b)
+        for t, b in store.library_members(request["job_id"], request["families"]).items()
+    }
+    top = request.get("top") or []
+    out: dict[str, Any] = {"honest": ex.honest_winner(members, data, metric), "skipped": []}
+    out["ensembles"] = ex.ensemble_diagnostics(
+        request.get("library") or [],
+        members,
+        {int(k): v for k, v in request["scores"].items()},
+        data,
+    )
+    for name, part in (
+        ("significance", lambda: ex.significance(top, data, metric, seed, budget)),
+        ("bias_variance", lambda: ex.bias_variance_top(top, data, seed, budget)),
+        (
+            "leakage",
+            lambda: ex.leakage_report(data, metric, request.get("dropped") or {}, seed, budget),
+        ),
+    ):
+        if budget.left() <= 0:
+            out["skipped"].append(name)
+            out[name] = []
+            continue
+        out[name] = part()
     return out
 
 
