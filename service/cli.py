@@ -9,7 +9,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
-from service.errors import EnsembleSearchError
+from service.errors import EnsembleSearchError, InvalidSpecError
 
 EPILOG = "Set TUTTI_REDIS_URL (or --redis-url) to share one Redis between machines."
 
@@ -49,9 +49,13 @@ def cmd_submit(args: argparse.Namespace) -> int:
     if args.families:
         fields["families"] = [f.strip() for f in args.families.split(",") if f.strip()]
     for item in args.set or []:
-        key, _, value = item.partition("=")
-        if not _:
-            raise SystemExit(f"--set {item!r}: use FIELD=VALUE, e.g. --set library_size=8")
+        key, eq, value = item.partition("=")
+        if not eq:
+            raise InvalidSpecError(
+                f"--set {item!r}: use FIELD=VALUE, e.g. --set library_size=8",
+                field="set",
+                value=item,
+            )
         fields[key.strip()] = _parse_value(value)
     client = _client(args)
     job = client.submit(args.data, **fields)
@@ -443,6 +447,13 @@ def main(argv: list[str] | None = None) -> int:
         return int(args.func(args) or 0)
     except EnsembleSearchError as exc:
         print(f"tutti: error: {exc}", file=sys.stderr)
+        return 2
+    except ConnectionError as exc:  # redis' ConnectionError subclasses the builtin one
+        print(
+            f"tutti: error: cannot reach Redis ({exc}); check TUTTI_REDIS_URL / --redis-url "
+            "and that the server runs (`tutti doctor`).",
+            file=sys.stderr,
+        )
         return 2
     except KeyboardInterrupt:
         return 130

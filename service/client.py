@@ -79,6 +79,7 @@ class Client:
             Nothing is stored or enqueued when either is raised.
         """
         parsed = parse_spec(spec, **fields)
+        parsed.check_deadline()
         frame = tables.read_table(data)
         prepared = tables.prepare(frame, parsed)
         blob = tables.encode(prepared.frame)
@@ -467,6 +468,7 @@ class Job:
             max_trials=done + extra,
             wall_seconds=wall_seconds or spec.wall_seconds,
         )
+        new.check_deadline()
         self.store.reopen(self.id, new.to_json(), shards=new.parallelism)
         timeout = self.client.settings.shard_seconds + new.trial_timeout + SHARD_TIMEOUT_SLACK
         for shard in range(new.parallelism):

@@ -55,6 +55,10 @@ class TaskQueue:
         n = 0
         for q in (self.search, self.final):
             for rq_job in q.get_jobs():
-                if rq_job.args and rq_job.args[0] == job_id:
+                try:
+                    args = rq_job.args
+                except Exception:  # an undecodable (forged) entry must not stop the sweep
+                    continue
+                if args and args[0] == job_id:
                     n += 1
         return n

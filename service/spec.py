@@ -84,7 +84,29 @@ class SearchSpec(BaseModel):
     whichever comes first; finalize fits inside that time.
     """
 
-    model_config = ConfigDict(frozen=True, extra="forbid", use_enum_values=False)
+    model_config = ConfigDict(
+        frozen=True, extra="forbid", use_enum_values=False, allow_inf_nan=False
+    )
+
+    @model_validator(mode="before")
+    @classmethod
+    def _no_bools_for_numbers(cls, data: Any) -> Any:
+        if isinstance(data, dict):
+            for name in (
+                "folds",
+                "max_trials",
+                "max_failed_trials",
+                "memory_limit_mb",
+                "seed",
+                "parallelism",
+                "library_size",
+                "wall_seconds",
+                "trial_timeout",
+                "holdout",
+            ):
+                if isinstance(data.get(name), bool):
+                    raise ValueError(f"{name}: expected a number, got {data[name]!r}")
+        return data
 
     schema_version: int = SCHEMA_VERSION
     target: str = Field(min_length=1, description="Column to predict.")
@@ -152,6 +174,23 @@ class SearchSpec(BaseModel):
             return self.max_failed_trials
         return max(10, self.max_trials // 2)
 
+    def check_deadline(self) -> None:
+        """Refuse a deadline that has already passed (checked at submit and extend only)."""
+        if self.deadline is None:
+            return
+        import datetime as _dt
+
+        when = self.deadline
+        if when.tzinfo is None:
+            when = when.astimezone()
+        if when <= _dt.datetime.now(_dt.UTC):
+            raise InvalidSpecError(
+                f"deadline: {self.deadline.isoformat()} has already passed; give a future time "
+                "or use wall_seconds.",
+                field="deadline",
+                value=self.deadline.isoformat(),
+            )
+
     def resolved(self, task: Task) -> SearchSpec:
         """Copy with the task and metric fixed (called once the target column is known)."""
         metric = self.metric or default_metric(task)
@@ -186,6 +225,8 @@ def _fix_hint(err: dict[str, Any]) -> str:
         return f"remove it; known fields are {', '.join(SearchSpec.model_fields)}"
     if kind == "missing":
         return "give a value"
+    if kind in ("tuple_type", "list_type"):
+        return "pass a list, e.g. ['boosting', 'bagging']"
     return ""
 
 
@@ -216,7 +257,9 @@ def parse_spec(data: Any = None, /, **fields: Any) -> SearchSpec:
             where = _location(tuple(err.get("loc", ())))
             msg = err.get("msg", "invalid").removeprefix("Value error, ")
             value = err.get("input")
-            shown = "" if err.get("type") == "missing" else f" (got {value!r})"
+            shown = (
+                "" if err.get("type") == "missing" or not err.get("loc") else f" (got {value!r})"
+            )
             hint = _fix_hint(err)
             problems.append(f"{where}: {msg}{shown}" + (f"; {hint}" if hint else ""))
         first = exc.errors()[0] if exc.errors() else {}

@@ -196,7 +196,7 @@ class JobStore:
         pipe.execute()
 
     def exists(self, job_id: str) -> bool:
-        return bool(self.r.exists(self.keys.job(check_id(job_id))))
+        return bool(self.r.hexists(self.keys.job(check_id(job_id)), "state"))
 
     def job(self, job_id: str) -> dict[str, Any]:
         """The job record with JSON fields decoded.
@@ -205,7 +205,7 @@ class JobStore:
             JobNotFoundError: no such job (the message says how to list jobs).
         """
         raw = self.r.hgetall(self.keys.job(check_id(job_id)))
-        if not raw:
+        if not raw or b"state" not in raw:
             raise JobNotFoundError(
                 f"job {job_id!r} not found in this store; run `tutti status` to list jobs "
                 "(or check TUTTI_REDIS_URL / --redis-url points at the right server).",

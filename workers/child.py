@@ -101,6 +101,9 @@ def _child_main(conn: Connection, threads: int) -> None:
                     out = trial_work.evaluate(request, cache, conn)
                 elif kind == "library":
                     out = ("library_done", trial_work.library(request, cache))
+                elif kind == "prepare":
+                    cache.get(request)  # decode the job's table before the first trial
+                    out = ("ready", {})
                 elif kind == "explain":
                     out = ("explain_done", trial_work.explain(request, cache))
                 elif kind == "refit":

@@ -26,6 +26,8 @@ REFIT_TRIES = 3
 PARETO_REFITS = 3
 TOP_N = 5
 EXPLAIN_MAX_SECONDS = 900.0
+EXPLAIN_MIN_SECONDS = 30.0
+EXPLAIN_SHARE = 0.25
 
 
 def versions() -> dict[str, str]:
@@ -194,7 +196,15 @@ class Finalizer:
         board: list[dict[str, Any]],
     ) -> dict[str, Any]:
         """Honest estimate, significance, bias/variance, diagnostics, leakage (time-bounded)."""
-        budget = min(max(self.time_left() * 0.6, 0.0), EXPLAIN_MAX_SECONDS)
+        started = float(self.record.get("started_at") or time.time())
+        searched = max(time.time() - started, 0.0)
+        # explanations cost at most a quarter of the search time (at least 30 s), never more
+        # than 60% of the time left before the deadline
+        budget = min(
+            max(EXPLAIN_SHARE * searched, EXPLAIN_MIN_SECONDS),
+            max(self.time_left() * 0.6, 0.0),
+            EXPLAIN_MAX_SECONDS,
+        )
         top = [
             {"id": c["id"], "family": c["family"], "params": c["members"][0]["params"]}
             for c in candidates
@@ -315,6 +325,7 @@ class Finalizer:
             "fit_seconds": out["fit_seconds"],
             "predict_ms": out["predict_ms"],
             "holdout_score": out["holdout_score"],
+            "decision_threshold": out.get("decision_threshold"),
             "versions": versions(),
             "created_at": time.time(),
         }

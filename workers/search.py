@@ -154,6 +154,7 @@ class Shard:
         self.fctx = context_from_record(self.record, self.spec.seed)
         study = open_study(self.ctx, self.job_id, seed)
         self._enqueue_defaults(study)
+        self._prepare()
         slice_end = time.monotonic() + self.ctx.settings.shard_seconds
         reason = ""
         while not reason:
@@ -223,6 +224,24 @@ class Shard:
             for params in fam.defaults(self.fctx):
                 study.enqueue_trial({"family": name, **params}, user_attrs={"default": True})
 
+    def _prepare(self) -> None:
+        """Have the trial process load the table now, so the first trial is not slower."""
+        request = {
+            "redis_url": self.ctx.url,
+            "prefix": self.ctx.settings.prefix,
+            "job_id": self.job_id,
+        }
+        try:
+            self.ctx.trials.request("prepare", request, timeout=max(self.spec.trial_timeout, 60))
+        except (ChildFailure, TrialCrashed) as exc:
+            self.log(f"could not preload the data: {exc}")
+
+    def trial_timeout(self) -> float:
+        """The spec's per-trial timeout, cut so that a trial ends before the hard deadline."""
+        reserve = self.deadlines.hard - self.deadlines.search
+        left = self.deadlines.hard - time.time() - 0.5 * reserve
+        return max(min(self.spec.trial_timeout, left), 1.0)
+
     def families(self) -> list[str]:
         return [f for f in self.spec.family_names if self.fctx.task in get_family(f).tasks]
 
@@ -275,16 +294,25 @@ class Shard:
             return not trial.should_prune()
 
         lease_key = self.store.keys.trial_lease(self.job_id, trial._trial_id)
+        timeout = self.trial_timeout()
         try:
             with Lease(self.ctx, lease_key, self.ctx.settings.lease_seconds):
                 kind, result = self.ctx.trials.request(
-                    "evaluate", request, timeout=self.spec.trial_timeout, on_fold=on_fold
+                    "evaluate", request, timeout=timeout, on_fold=on_fold
                 )
         except (ChildFailure, TrialCrashed) as exc:
             detail = str(exc)
+            by_deadline = timeout < self.spec.trial_timeout
             if isinstance(exc, TrialCrashed) and exc.reason == "timeout":
-                detail = f"timeout: ran past trial_timeout={self.spec.trial_timeout:g} s"
-            self.fail(study, trial, row, detail, retry=True)
+                detail = (
+                    f"stopped at the job's deadline after {timeout:.0f} s"
+                    if by_deadline
+                    else f"timeout: ran past trial_timeout={self.spec.trial_timeout:g} s"
+                )
+            if isinstance(exc, TrialCrashed) and exc.reason == "timeout" and by_deadline:
+                self.fail(study, trial, row, detail, retry=False, count=False)
+            else:
+                self.fail(study, trial, row, detail, retry=True)
             return
         row.update(
             members=result.get("members", ""),
@@ -334,12 +362,16 @@ class Shard:
         error: str,
         *,
         retry: bool,
+        count: bool = True,
     ) -> None:
-        """Record a failed trial, give its ticket back and retry its parameters (at most 2×)."""
+        """Record a failed trial, give its ticket back and retry its parameters (at most 2×).
+
+        ``count=False`` (a trial cut by the job's deadline) keeps it out of the failure cap.
+        """
         if not self._tell(study, trial, state=TrialState.FAIL):
             return
         self.store.return_ticket(self.job_id)
-        n_fail = self.store.add_failure(self.job_id)
+        n_fail = self.store.add_failure(self.job_id) if count else self.store.failures(self.job_id)
         retries = int(trial.user_attrs.get("retries", 0))
         row.update(state="failed", error=error[:2000], finished_at=time.time(), retries=retries)
         self.store.record_trial(self.job_id, row)

@@ -29,6 +29,8 @@ def run_shard(job_id: str, shard: int) -> str:
 
     job_id, shard = check_id(job_id), _shard_id(shard)
     ctx = current()
+    if not ctx.store.exists(job_id):
+        return "no such job"  # deleted while queued, or forged: write nothing
     lease_key = ctx.store.keys.shard_lease(job_id, shard)
     from workers.search import Lease
 
@@ -63,5 +65,7 @@ def finalize_job(job_id: str) -> str:
 
     job_id = check_id(job_id)
     ctx = current()
+    if not ctx.store.exists(job_id):
+        return "no such job"
     with Lease(ctx, ctx.store.keys.shard_lease(job_id, -1), ctx.settings.lease_seconds):
         return Finalizer(ctx, job_id).run()

@@ -154,6 +154,35 @@ def _inject_fault(request: dict[str, Any]) -> None:
         hog[::4096] = b"x" * len(hog[::4096])
 
 
+THRESHOLD_METRICS = (Metric.F1, Metric.BALANCED_ACCURACY)
+
+
+def _decision_threshold(request: dict[str, Any], cache: DataCache, entry: _Entry) -> float | None:
+    """For binary label metrics, the probability cut-off that maximises the metric.
+
+    Chosen on the winner's stored out-of-fold predictions (never on rows a model was fitted
+    on); the exported pipeline then predicts with that cut-off instead of 0.5.
+    """
+    data, metric = entry.data, Metric(entry.spec.metric)
+    if data.task != "binary" or metric not in THRESHOLD_METRICS or data.classes is None:
+        return None
+    store = cache.store(request["redis_url"], request["prefix"])
+    blob = store.r.get(store.keys.oof(request["job_id"], int(request["members"][0]["number"])))
+    if blob is None:
+        return None
+    rows = data.scored_rows
+    proba = oof_array(blob)[rows][:, 1]
+    y = data.y[rows]
+    best_t, best = 0.5, -np.inf
+    for t in np.unique(np.quantile(proba, np.linspace(0.01, 0.99, 99))):
+        labels = np.where(proba >= t, data.classes[1], data.classes[0])
+        onehot = (labels[:, None] == data.classes[None, :]).astype(float)
+        value = metrics.score(metric, y, onehot, data.classes)
+        if value > best:
+            best_t, best = float(t), value
+    return best_t
+
+
 def _fold_pause() -> float:
     """Test-only: ``{"sleep_fold": seconds}`` in ``TUTTI_FAULT_INJECT`` slows every fold."""
     raw = os.environ.get("TUTTI_FAULT_INJECT")
@@ -202,7 +231,14 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
         )
     else:
         model = _candidate(members[0], data, seed)
-    pipe = Pipeline([("frame", ensembling.FrameNormalizer(schema=data.schema)), ("model", model)])
+    pipe: Any = Pipeline(
+        [("frame", ensembling.FrameNormalizer(schema=data.schema)), ("model", model)]
+    )
+    threshold = _decision_threshold(request, cache, entry) if not combiner else None
+    if threshold is not None:
+        from sklearn.model_selection import FixedThresholdClassifier
+
+        pipe = FixedThresholdClassifier(pipe, threshold=threshold, response_method="predict_proba")
     rows = data.search_rows
     t0 = time.perf_counter()
     pipe.fit(data.X.iloc[rows], data.y[rows])
@@ -225,6 +261,7 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
         "holdout_score": holdout,
         "untrusted": sorted(sio.get_untrusted_types(data=blob)),
         "size_bytes": len(blob),
+        "decision_threshold": threshold,
     }
 
 

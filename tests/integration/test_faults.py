@@ -79,15 +79,23 @@ def _busy_worker(client: Client, pids: dict[int, Any]) -> tuple[int, dict[str, A
     return None
 
 
-def test_worker_killed_mid_trial_repeatedly(client: Client, redis_url: str, prefix: str,
-                                            tmp_path: Path) -> None:
+def test_worker_killed_mid_trial_repeatedly(
+    client: Client, redis_url: str, prefix: str, tmp_path: Path
+) -> None:
     env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.4})}
-    job = client.submit(_frame(), target="benign", max_trials=30, parallelism=3, seed=1,
-                        families=["boosting", "single"], wall_seconds=900, trial_timeout=120)
+    job = client.submit(
+        _frame(),
+        target="benign",
+        max_trials=30,
+        parallelism=3,
+        seed=1,
+        families=["boosting", "single"],
+        wall_seconds=900,
+        trial_timeout=120,
+    )
     procs = {}
     for i in range(3):
-        p = start_workers(redis_url, prefix, 1, via_cli=True, env=env,
-                          log=tmp_path / f"w{i}.log")
+        p = start_workers(redis_url, prefix, 1, via_cli=True, env=env, log=tmp_path / f"w{i}.log")
         procs[p.pid] = p
     kills = []
     try:
@@ -96,13 +104,21 @@ def test_worker_killed_mid_trial_repeatedly(client: Client, redis_url: str, pref
             victims = _tree(launcher)
             os.killpg(launcher, signal.SIGKILL)  # the whole process tree, as a machine loss
             killed_at = time.monotonic()
+            killed_wall = time.time()
             procs.pop(launcher).wait(10)
-            kills.append((beat["trial"], killed_at, victims))
-            p = start_workers(redis_url, prefix, 1, via_cli=True, env=env,
-                              log=tmp_path / f"w{len(kills) + 3}.log")
+            kills.append((beat["trial"], killed_at, victims, killed_wall))
+            p = start_workers(
+                redis_url,
+                prefix,
+                1,
+                via_cli=True,
+                env=env,
+                log=tmp_path / f"w{len(kills) + 3}.log",
+            )
             procs[p.pid] = p
             time.sleep(2)
-        for trial, killed_at, victims in kills:
+        for trial, killed_at, victims, killed_wall in kills:
+
             def failed(t: int = trial) -> bool:
                 rows = {r["number"]: r for r in client.store.trial_rows(job.id)}
                 return t in rows and rows[t]["state"] in ("failed", "complete", "pruned")
@@ -111,7 +127,8 @@ def test_worker_killed_mid_trial_repeatedly(client: Client, redis_url: str, pref
             row = {r["number"]: r for r in client.store.trial_rows(job.id)}[trial]
             # the killed trial was failed by the reaper (lease expired) within 60 s
             assert row["state"] == "failed" and row.get("reaped"), row
-            assert time.monotonic() - killed_at < 90
+            assert row["finished_at"] - killed_wall < 60
+            print(f"FIGURE kill_to_failed_seconds {row['finished_at'] - killed_wall:.1f}")
             time.sleep(max(0.0, 10 - (time.monotonic() - killed_at)))
             assert _alive(victims) == [], "a descendant of a killed worker survived"
         status = job.wait(timeout=600)
@@ -122,7 +139,8 @@ def test_worker_killed_mid_trial_repeatedly(client: Client, redis_url: str, pref
     rows = client.store.trial_rows(job.id)
     assert sum(r["state"] in ("complete", "pruned") for r in rows) == 30
     retried = {r.get("retry_of") for r in rows if r.get("retry_of") is not None}
-    assert {t for t, _, _ in kills} <= retried  # every killed trial was retried
+    assert {k[0] for k in kills} <= retried  # every killed trial was retried
+    print(f"FIGURE faults_survived worker_kill {len(kills)}")
     states = _study_states(client, job.id)
     assert TrialState.RUNNING not in states
     assert len(rows) == len(states)  # trial numbers unique, one row per study trial
@@ -135,14 +153,23 @@ def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None
     prefix = "rk"
     client = Client(url=server.url, prefix=prefix)
     env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.5})}
-    job = client.submit(_frame(), target="benign", max_trials=12, parallelism=2, seed=2,
-                        families=["boosting"], wall_seconds=900, trial_timeout=120)
+    job = client.submit(
+        _frame(),
+        target="benign",
+        max_trials=12,
+        parallelism=2,
+        seed=2,
+        families=["boosting"],
+        wall_seconds=900,
+        trial_timeout=120,
+    )
     workers = start_workers(server.url, prefix, 2, env=env, log=tmp_path / "w.log")
     try:
         wait_until(lambda: client.store.board(job.id), 120)
         wait_until(lambda: any(w.get("trial") is not None for w in client.workers()), 60)
-        before = {r["number"]: r for r in client.store.trial_rows(job.id)
-                  if r["state"] == "complete"}
+        before = {
+            r["number"]: r for r in client.store.trial_rows(job.id) if r["state"] == "complete"
+        }
         server.kill()  # kill -9 while trials are between ask and tell
         time.sleep(8)  # longer than the 3 s lease: every lease expires
         server.start()  # same port, same files
@@ -151,8 +178,14 @@ def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None
         log = (tmp_path / "w.log").read_text()
         assert status["state"] == "finished", (job.logs()[-20:], log[-3000:])
         after = {r["number"]: r for r in client.store.trial_rows(job.id)}
-        for n, row in before.items():  # no completed trial lost
-            assert after[n]["state"] == "complete" and after[n]["score"] == row["score"]
+        lost = [
+            n
+            for n, row in before.items()
+            if after.get(n, {}).get("state") != "complete" or after[n]["score"] != row["score"]
+        ]
+        print(f"FIGURE trials_lost {len(lost)}")
+        print("FIGURE faults_survived redis_kill 1")
+        assert lost == []  # no completed trial lost
         assert sum(r["state"] in ("complete", "pruned") for r in after.values()) == 12
         assert TrialState.RUNNING not in _study_states(client, job.id)
         assert client.store.get_artifact(job.id) is not None
@@ -162,14 +195,24 @@ def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None
         server.kill()
 
 
-def test_sigterm_finishes_the_current_trial_and_exits(client: Client, redis_url: str,
-                                                      prefix: str, tmp_path: Path) -> None:
+def test_sigterm_finishes_the_current_trial_and_exits(
+    client: Client, redis_url: str, prefix: str, tmp_path: Path
+) -> None:
     env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.6})}
-    job = client.submit(_frame(), target="benign", max_trials=8, parallelism=1, seed=3,
-                        families=["boosting"], wall_seconds=900, trial_timeout=120)
+    job = client.submit(
+        _frame(),
+        target="benign",
+        max_trials=8,
+        parallelism=1,
+        seed=3,
+        families=["boosting"],
+        wall_seconds=900,
+        trial_timeout=120,
+    )
     w = start_workers(redis_url, prefix, 1, burst=False, env=env, log=tmp_path / "w.log")
-    beat = wait_until(lambda: next((x for x in client.workers() if x.get("trial") is not None),
-                                   None), 90)
+    beat = wait_until(
+        lambda: next((x for x in client.workers() if x.get("trial") is not None), None), 90
+    )
     os.kill(w.pid, signal.SIGTERM)
     assert w.wait(timeout=60) is not None
     rows = {r["number"]: r for r in client.store.trial_rows(job.id)}
@@ -183,15 +226,29 @@ def test_sigterm_finishes_the_current_trial_and_exits(client: Client, redis_url:
         w2.wait(timeout=120)
     assert status["state"] == "finished"
     assert sum(r["state"] in ("complete", "pruned") for r in client.store.trial_rows(job.id)) == 8
+    print("FIGURE faults_survived sigterm 1")
 
 
 def test_candidates_that_raise_time_out_or_exhaust_memory_fail_cleanly(
-        client: Client, redis_url: str, prefix: str, tmp_path: Path) -> None:
-    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps(
-        {"raise": [1], "sleep": {"2": 60}, "alloc_mb": {"3": 6000}})}
-    job = client.submit(_frame(), target="benign", max_trials=8, parallelism=1, seed=4,
-                        families=["single"], wall_seconds=900, trial_timeout=8,
-                        memory_limit_mb=1500)
+    client: Client, redis_url: str, prefix: str, tmp_path: Path
+) -> None:
+    env = {
+        **FAST,
+        "TUTTI_FAULT_INJECT": json.dumps(
+            {"raise": [1], "sleep": {"2": 60}, "alloc_mb": {"3": 6000}}
+        ),
+    }
+    job = client.submit(
+        _frame(),
+        target="benign",
+        max_trials=8,
+        parallelism=1,
+        seed=4,
+        families=["single"],
+        wall_seconds=900,
+        trial_timeout=8,
+        memory_limit_mb=1500,
+    )
     w = start_workers(redis_url, prefix, 1, env=env, log=tmp_path / "w.log")
     try:
         status = job.wait(timeout=300)
@@ -207,13 +264,23 @@ def test_candidates_that_raise_time_out_or_exhaust_memory_fail_cleanly(
     # a failed trial's parameters are retried at most twice
     assert rows[2]["retry_of"] == 1 and rows[3]["retry_of"] == 2
     assert all(r.get("retry_of") != 3 for r in rows.values())
+    print("FIGURE faults_survived raise_timeout_memory 3")
 
 
 def test_cancel_stops_workers_within_a_fold_and_keeps_best_so_far(
-        client: Client, redis_url: str, prefix: str, tmp_path: Path) -> None:
+    client: Client, redis_url: str, prefix: str, tmp_path: Path
+) -> None:
     env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 1.0})}
-    job = client.submit(_frame(), target="benign", max_trials=200, parallelism=2, seed=5,
-                        families=["single"], wall_seconds=900, trial_timeout=120)
+    job = client.submit(
+        _frame(),
+        target="benign",
+        max_trials=200,
+        parallelism=2,
+        seed=5,
+        families=["single"],
+        wall_seconds=900,
+        trial_timeout=120,
+    )
     w = start_workers(redis_url, prefix, 2, env=env, log=tmp_path / "w.log")
     try:
         wait_until(lambda: len(client.store.board(job.id)) >= 2, 180)
@@ -224,6 +291,7 @@ def test_cancel_stops_workers_within_a_fold_and_keeps_best_so_far(
         status = job.wait(timeout=180)
     finally:
         w.wait(timeout=120)
+    print(f"FIGURE cancel_to_idle_seconds {idle_after:.1f}")
     assert idle_after < 1.0 + 2 * 2.0 + 1.0  # one fold (1 s) plus heartbeat lag (2 s)
     assert status["state"] == "cancelled"
     assert len(job.leaderboard()) >= 2
@@ -231,11 +299,20 @@ def test_cancel_stops_workers_within_a_fold_and_keeps_best_so_far(
     assert model.predict(_frame().drop(columns="benign").head(3)).shape == (3,)
 
 
-def test_deadline_stops_the_search_in_time(client: Client, redis_url: str, prefix: str,
-                                           tmp_path: Path) -> None:
+def test_deadline_stops_the_search_in_time(
+    client: Client, redis_url: str, prefix: str, tmp_path: Path
+) -> None:
     env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.5})}
-    job = client.submit(_frame(), target="benign", max_trials=500, parallelism=1, seed=6,
-                        families=["single"], wall_seconds=25, trial_timeout=10)
+    job = client.submit(
+        _frame(),
+        target="benign",
+        max_trials=500,
+        parallelism=1,
+        seed=6,
+        families=["single"],
+        wall_seconds=25,
+        trial_timeout=10,
+    )
     w = start_workers(redis_url, prefix, 1, env=env, log=tmp_path / "w.log")
     try:
         status = job.wait(timeout=200)
@@ -249,9 +326,17 @@ def test_deadline_stops_the_search_in_time(client: Client, redis_url: str, prefi
 
 
 def test_extend_continues_the_same_study_and_finalizes_again(
-        client: Client, redis_url: str, prefix: str, tmp_path: Path) -> None:
-    job = client.submit(_frame(), target="benign", max_trials=3, parallelism=1, seed=7,
-                        families=["single"], wall_seconds=600)
+    client: Client, redis_url: str, prefix: str, tmp_path: Path
+) -> None:
+    job = client.submit(
+        _frame(),
+        target="benign",
+        max_trials=3,
+        parallelism=1,
+        seed=7,
+        families=["single"],
+        wall_seconds=600,
+    )
     w = start_workers(redis_url, prefix, 1, env=FAST, log=tmp_path / "w.log")
     w.wait(timeout=300)
     assert job.status()["state"] == "finished"
@@ -266,15 +351,24 @@ def test_extend_continues_the_same_study_and_finalizes_again(
 
 
 def test_one_worker_and_a_fixed_seed_give_the_same_leaderboard(
-        redis_url: str, tmp_path: Path) -> None:
+    redis_url: str, tmp_path: Path
+) -> None:
     boards = []
     for i in range(2):
         prefix = f"det{i}{int(time.time())}"
         client = Client(url=redis_url, prefix=prefix)
-        job = client.submit(_frame(), target="benign", max_trials=6, parallelism=1, seed=11,
-                            families=["boosting", "single"], wall_seconds=600)
-        w = start_workers(redis_url, prefix, 1, env={"TUTTI_SHARD_SECONDS": "600"},
-                          log=tmp_path / f"w{i}.log")
+        job = client.submit(
+            _frame(),
+            target="benign",
+            max_trials=6,
+            parallelism=1,
+            seed=11,
+            families=["boosting", "single"],
+            wall_seconds=600,
+        )
+        w = start_workers(
+            redis_url, prefix, 1, env={"TUTTI_SHARD_SECONDS": "600"}, log=tmp_path / f"w{i}.log"
+        )
         w.wait(timeout=300)
         board = job.leaderboard()
         boards.append(board[["candidate", "family", "roc_auc"]].reset_index(drop=True))
