@@ -246,6 +246,9 @@ class Shard:
         return [f for f in self.spec.family_names if self.fctx.task in get_family(f).tasks]
 
     def run_trial(self, study: optuna.Study) -> None:
+        backend = getattr(study._storage, "_backend", None)
+        busy0 = getattr(backend, "busy_seconds", 0.0)
+        a0 = time.perf_counter()
         trial = study.ask()
         t0 = time.time()
         row: dict[str, Any] = {
@@ -267,7 +270,7 @@ class Shard:
                 retry=False,
             )
             return
-        row.update(family=family, params=params)
+        row.update(family=family, params=params, ask_seconds=time.perf_counter() - a0)
         self.ctx.doing.update(
             job=self.job_id, shard=self.shard, trial=trial.number, family=family, since=time.time()
         )
@@ -295,11 +298,13 @@ class Shard:
 
         lease_key = self.store.keys.trial_lease(self.job_id, trial._trial_id)
         timeout = self.trial_timeout()
+        t_child = time.perf_counter()
         try:
             with Lease(self.ctx, lease_key, self.ctx.settings.lease_seconds):
                 kind, result = self.ctx.trials.request(
                     "evaluate", request, timeout=timeout, on_fold=on_fold
                 )
+            row["trial_process_seconds"] = time.perf_counter() - t_child
         except (ChildFailure, TrialCrashed) as exc:
             detail = str(exc)
             by_deadline = timeout < self.spec.trial_timeout
@@ -333,8 +338,13 @@ class Shard:
                 if len(result["fold_scores"]) > 1
                 else 0.0,
             )
+            t_tell = time.perf_counter()
             if not self._tell(study, trial, values=score):
                 return
+            row.update(
+                tell_seconds=time.perf_counter() - t_tell,
+                journal_seconds=getattr(backend, "busy_seconds", 0.0) - busy0,
+            )
             self.store.record_trial(
                 self.job_id, row, oof=oof_bytes(result["oof"]), library_size=self.spec.library_size
             )
