@@ -93,7 +93,9 @@ class Finalizer:
         board = self.store.board(self.job_id)
         if not board:
             return self.commit_empty(final)
+        t_lib = time.time()
         library = self.library_ensembles(board)
+        library_seconds = time.time() - t_lib
         candidates = self.candidates(board, library)
         artifacts: dict[str, tuple[bytes, dict[str, Any]]] = {}
         chosen: dict[str, Any] | None = None
@@ -125,6 +127,7 @@ class Finalizer:
             "best": {k: chosen[k] for k in ("id", "kind", "family", "score")},
             "holdout_score": meta.get("holdout_score"),
             "finalize_seconds": time.time() - t0,
+            "library_seconds": library_seconds,
             "refit_errors": errors,
             "pareto": pareto,
             "explain": explained,

@@ -146,6 +146,7 @@ def test_worker_killed_mid_trial_repeatedly(
     assert len(rows) == len(states)  # trial numbers unique, one row per study trial
 
 
+@pytest.mark.slow
 def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None:
     server = RedisProcess(tmp_path / "redis")
     server.dir.mkdir()
@@ -195,6 +196,7 @@ def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None
         server.kill()
 
 
+@pytest.mark.slow
 def test_sigterm_finishes_the_current_trial_and_exits(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
@@ -350,6 +352,7 @@ def test_extend_continues_the_same_study_and_finalizes_again(
     assert len(_study_states(client, job.id)) == 6
 
 
+@pytest.mark.slow
 def test_one_worker_and_a_fixed_seed_give_the_same_leaderboard(
     redis_url: str, tmp_path: Path
 ) -> None:

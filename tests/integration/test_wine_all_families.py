@@ -10,7 +10,7 @@ from sklearn.datasets import load_wine
 from service.spec import KNOWN_FAMILIES
 from tests.conftest import start_workers
 
-pytestmark = pytest.mark.integration
+pytestmark = [pytest.mark.integration, pytest.mark.slow]
 
 
 def test_every_family_runs_and_the_winner_matches_the_published_accuracy(
