@@ -767,7 +767,7 @@ def encode(df: pd.DataFrame) -> bytes:
     return bytes(sink.getvalue().to_pybytes())
 
 
-def decode(data: bytes) -> pd.DataFrame:
+def decode(data: bytes | bytearray) -> pd.DataFrame:
     """The frame :func:`encode` stored, with text columns back as object-of-str with NaN.
 
     pandas 3 reads Parquet strings as its ``str`` dtype (and all-missing columns as ``None``);
@@ -782,10 +782,14 @@ def decode(data: bytes) -> pd.DataFrame:
     except (pa.ArrowException, OSError) as exc:
         message = f"data: the stored table is not valid Parquet ({_short(exc)})"
         raise _data_error(f"{message}; submit the job again.") from exc
-    frame = table.to_pandas()
-    for name, kind in zip(table.column_names, table.schema.types, strict=True):
-        if pa.types.is_string(kind) or pa.types.is_large_string(kind) or pa.types.is_null(kind):
-            frame[name] = pd.Series(_as_text(frame[name]), index=frame.index, dtype=object)
+    text = [name for name, kind in zip(table.column_names, table.schema.types, strict=True)
+            if pa.types.is_string(kind) or pa.types.is_large_string(kind)
+            or pa.types.is_null(kind)]
+    # free Arrow buffers while converting: peak memory stays near one copy of the table
+    frame = table.to_pandas(self_destruct=True, split_blocks=True)
+    del table
+    for name in text:
+        frame[name] = pd.Series(_as_text(frame[name]), index=frame.index, dtype=object)
     return frame
 
 

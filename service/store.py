@@ -151,7 +151,7 @@ class JobStore:
                 progress(min((i + 1) * chunk_bytes, len(data)), len(data))
         self.r.set(self.keys.data_meta(digest), json.dumps({"chunks": n, "bytes": len(data)}))
 
-    def get_data(self, digest: str) -> bytes:
+    def get_data(self, digest: str) -> bytearray:
         raw = self.r.get(self.keys.data_meta(digest))
         if raw is None:
             raise InvalidDataError(
@@ -160,14 +160,26 @@ class JobStore:
                 value=digest,
             )
         meta = json.loads(raw)
-        parts = [self.r.get(self.keys.data_chunk(digest, i)) for i in range(meta["chunks"])]
-        if any(p is None for p in parts):
+        out = bytearray(int(meta["bytes"]))  # one buffer, filled chunk by chunk
+        pos = 0
+        for i in range(meta["chunks"]):
+            part = self.r.get(self.keys.data_chunk(digest, i))
+            if part is None:
+                raise InvalidDataError(
+                    f"data blob {digest[:12]}… is incomplete; resubmit the job.",
+                    field="data",
+                    value=digest,
+                )
+            out[pos : pos + len(part)] = part
+            pos += len(part)
+            del part
+        if pos != len(out):
             raise InvalidDataError(
-                f"data blob {digest[:12]}… is incomplete; resubmit the job.",
+                f"data blob {digest[:12]}… has {pos} of {len(out)} bytes; resubmit the job.",
                 field="data",
                 value=digest,
             )
-        return b"".join(parts)  # type: ignore[arg-type]
+        return out
 
     # ------------------------------------------------------------------ job record
     def create_job(self, job_id: str, record: dict[str, Any], *, shards: int) -> None:

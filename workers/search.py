@@ -351,8 +351,13 @@ class Shard:
             self.log(f"trial {trial.number} {family} complete score={score:.5f}")
         else:
             row.update(state="pruned")
+            t_tell = time.perf_counter()
             if not self._tell(study, trial, state=TrialState.PRUNED):
                 return
+            row.update(
+                tell_seconds=time.perf_counter() - t_tell,
+                journal_seconds=getattr(backend, "busy_seconds", 0.0) - busy0,
+            )
             self.store.record_trial(self.job_id, row)
             self.log(f"trial {trial.number} {family} pruned after {len(scores)} folds")
 
