@@ -1,0 +1,74 @@
+"""Operations around jobs: doctor, purge, the sweep that re-enqueues a dead finalize."""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+import pytest
+import redis
+from sklearn.datasets import load_iris
+
+from service.config import Settings
+from service.doctor import PROBLEM, diagnose
+from service.store import JobState
+from tests.conftest import RedisProcess
+from workers.context import WorkerContext
+from workers.sweep import sweep
+
+pytestmark = pytest.mark.integration
+
+
+def test_doctor_accepts_a_safe_server_and_names_what_to_change(tmp_path: Path) -> None:
+    server = RedisProcess(tmp_path).start()  # AOF + fsync always, noeviction (the default)
+    try:
+        r = redis.Redis.from_url(server.url)
+        assert [f for f in diagnose(r, server.url) if f.level == PROBLEM] == []
+        r.config_set("appendonly", "no")
+        r.config_set("maxmemory-policy", "allkeys-lru")
+        problems = {f.check: f.detail for f in diagnose(r, server.url) if f.level == PROBLEM}
+        assert "appendonly yes" in problems["persistence"]
+        assert "noeviction" in problems["eviction"]
+        # the URL is only parsed here: a server reached over the network without a password
+        remote = {
+            f.check: f.detail for f in diagnose(r, "redis://10.1.2.3:6379/0") if f.level == PROBLEM
+        }
+        assert "requirepass" in remote["password"]
+    finally:
+        server.kill()
+
+
+def test_purge_removes_only_old_final_jobs(client) -> None:  # type: ignore[no-untyped-def]
+    frame = load_iris(as_frame=True).frame
+    old = client.submit(frame, target="target", max_trials=1)
+    recent = client.submit(frame, target="target", max_trials=1)
+    queued_old = client.submit(frame, target="target", max_trials=1)
+    for job in (old, recent):
+        client.store.transition(job.id, JobState.CANCELLED)
+    long_ago = time.time() - 40 * 86400
+    client.store.set_fields(old.id, created_at=repr(long_ago))
+    client.store.set_fields(queued_old.id, created_at=repr(long_ago))
+    assert client.purge(30 * 86400) == [old.id]
+    assert {j.id for j in client.jobs()} == {recent.id, queued_old.id}
+    assert list(client.redis.scan_iter(match=f"{client.keys.prefix}:job:{old.id}*")) == []
+
+
+def test_sweep_re_enqueues_the_finalize_of_a_dead_worker(
+    client,
+    redis_url: str,  # type: ignore[no-untyped-def]
+    prefix: str,
+) -> None:
+    frame = load_iris(as_frame=True).frame
+    job = client.submit(frame, target="target", max_trials=1, parallelism=1)
+    client.queue.search.empty()  # its shard ran elsewhere and stopped for good …
+    client.store.shard_stopped(job.id)
+    client.store.transition(job.id, JobState.RUNNING)
+    client.store.transition(job.id, JobState.FINALIZING)  # … and finalize's worker then died
+    ctx = WorkerContext.create(
+        Settings(redis_url=redis_url, prefix=prefix, lease_seconds=1.0), redis_url
+    )
+    assert sweep(ctx) == 0  # first look: only a suspicion
+    time.sleep(1.1)
+    assert sweep(ctx) == 1  # still nothing running or queued a lease period later
+    queued = client.queue.final.get_jobs()
+    assert [(q.func_name, q.args) for q in queued] == [("workers.tasks.finalize_job", [job.id])]
