@@ -107,8 +107,10 @@ class Client:
         }
         self.store.create_job(job_id, record, shards=resolved.parallelism)
         timeout = self.settings.shard_seconds + resolved.trial_timeout + SHARD_TIMEOUT_SLACK
-        for shard in range(resolved.parallelism):
-            self.queue.enqueue_shard(job_id, shard, timeout=timeout)
+        for shard in range(resolved.parallelism):  # `high` jumps ahead of queued jobs
+            self.queue.enqueue_shard(
+                job_id, shard, timeout=timeout, at_front=resolved.priority == "high"
+            )
         return Job(self, job_id)
 
     # ------------------------------------------------------------------ lookup

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import enum
 from datetime import datetime
-from typing import Any
+from typing import Any, Literal
 
 from pydantic import (
     BaseModel,
@@ -126,6 +126,7 @@ class SearchSpec(BaseModel):
     seed: int = Field(default=0, ge=0, le=2**31 - 1)
     parallelism: int = Field(default=2, ge=1, le=256)
     library_size: int = Field(default=5, ge=0, le=100)
+    priority: Literal["normal", "high"] = "normal"
     drop_columns: tuple[str, ...] = ()
     allow_leaks: bool = False
     name: str | None = Field(default=None, max_length=200)

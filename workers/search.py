@@ -307,6 +307,8 @@ class Shard:
             row["trial_process_seconds"] = time.perf_counter() - t_child
         except (ChildFailure, TrialCrashed) as exc:
             detail = str(exc)
+            if isinstance(exc, ChildFailure) and exc.trace:
+                self.log(f"trial {trial.number} traceback:\n{exc.trace}")
             by_deadline = timeout < self.spec.trial_timeout
             if isinstance(exc, TrialCrashed) and exc.reason == "timeout":
                 detail = (

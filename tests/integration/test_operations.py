@@ -72,3 +72,12 @@ def test_sweep_re_enqueues_the_finalize_of_a_dead_worker(
     assert sweep(ctx) == 1  # still nothing running or queued a lease period later
     queued = client.queue.final.get_jobs()
     assert [(q.func_name, q.args) for q in queued] == [("workers.tasks.finalize_job", [job.id])]
+
+
+def test_jobs_queue_in_submission_order_and_high_priority_jumps_ahead(client) -> None:  # type: ignore[no-untyped-def]
+    frame = load_iris(as_frame=True).frame
+    first = client.submit(frame, target="target", max_trials=1, parallelism=1)
+    second = client.submit(frame, target="target", max_trials=1, parallelism=1)
+    urgent = client.submit(frame, target="target", max_trials=1, parallelism=1, priority="high")
+    order = [q.args[0] for q in client.queue.search.get_jobs()]
+    assert order == [urgent.id, first.id, second.id]
