@@ -92,7 +92,7 @@ def collect(job: Job) -> dict[str, Any]:
         "honest": _honest(extras, sign),
         "bias_variance": explain.get("bias_variance") or [],
         "pareto": extras.get("pareto") or [],
-        "ensembles": explain.get("ensembles") or [],
+        "ensembles": (explain.get("ensembles") or []) + (explain.get("composites") or []),
         "leakage": explain.get("leakage") or [],
         "versions": versions,
         "warnings": list(rec.get("warnings") or [])

@@ -28,6 +28,7 @@ from workers import metrics
 from workers.biasvar import bias_variance, holdout_split
 from workers.datasets import Dataset
 from workers.diagnostics import ensemble_gain, error_correlation
+from workers.evaluation import cross_validate
 from workers.families import get_family
 from workers.honesty import bbc_cv, corrected_resampled_ttest, repeated_kfold_indices
 
@@ -71,7 +72,11 @@ def honest_winner(members: dict[int, np.ndarray], data: Dataset, metric: Metric)
 
 
 def _build(member: dict[str, Any], data: Dataset, seed: int) -> Any:
-    return get_family(member["family"]).build(dict(member["params"]), data.context(seed))
+    from workers.trial_work import build_candidate
+
+    return build_candidate(
+        get_family(member["family"]), dict(member["params"]), data.context(seed)
+    )
 
 
 def significance(
@@ -179,6 +184,63 @@ def ensemble_diagnostics(
                 "weights": ens.get("weights"),
                 "error_corr": corr,
                 "gain": ensemble_gain(float(ens["score"]), [scores[t] for t in ids]),
+            }
+        )
+    return out
+
+
+COMPOSITES = ("voting", "stacking", "blending")
+
+
+def _members_of(est: Any) -> tuple[list[tuple[str, Any]], Any]:
+    """(members as stand-alone pipelines, vote weights or None) of a composite candidate."""
+    from sklearn.pipeline import Pipeline
+
+    head: list[tuple[str, Any]] = []
+    comp = est
+    if isinstance(est, Pipeline):
+        head, comp = list(est.steps[:-1]), est.steps[-1][1]
+    members = [(name, m) for name, m in getattr(comp, "estimators", []) if m != "drop"]
+    wrapped = [(name, Pipeline([*head, ("model", m)]) if head else m) for name, m in members]
+    return wrapped, getattr(comp, "weights", None)
+
+
+def composite_diagnostics(
+    top: list[dict[str, Any]],
+    scores: dict[str, float],
+    data: Dataset,
+    metric: Metric,
+    seed: int,
+    budget: Budget,
+) -> list[dict[str, Any]]:
+    """Member weights, member error correlation and gain for voting/stacking/blending winners.
+
+    Each member is cross-validated alone on the job's folds (extra fold fits, time-bounded),
+    so its errors line up with the composite's and with each other.
+    """
+    out = []
+    rows = data.scored_rows
+    for cand in top:
+        if cand["family"] not in COMPOSITES or budget.left() <= 0:
+            continue
+        members, weights = _members_of(_build(cand, data, seed))
+        if len(members) < 2:
+            continue
+        evs = [cross_validate(m, data, metric) for _, m in members]
+        preds = [ev.oof[rows] for ev in evs]
+        corr = error_correlation(preds, data.y[rows], data.task, classes=data.classes)
+        if weights is None and cand["family"] == "voting":
+            weights = [1.0] * len(members)
+        norm = None if weights is None else [float(w) / float(sum(weights)) for w in weights]
+        out.append(
+            {
+                "candidate": cand["id"],
+                "method": cand["family"],
+                "members": [name for name, _ in members],
+                "weights": norm,
+                "member_scores": [metrics.sign(metric) * ev.mean for ev in evs],
+                "error_corr": corr,
+                "gain": ensemble_gain(scores[cand["id"]], [ev.mean for ev in evs]),
             }
         )
     return out

@@ -209,7 +209,12 @@ class Finalizer:
             EXPLAIN_MAX_SECONDS,
         )
         top = [
-            {"id": c["id"], "family": c["family"], "params": c["members"][0]["params"]}
+            {
+                "id": c["id"],
+                "family": c["family"],
+                "params": c["members"][0]["params"],
+                "score": c["score"],
+            }
             for c in candidates
             if c["kind"] == "trial"
         ][:TOP_N]

@@ -22,7 +22,7 @@ import numpy as np
 import optuna
 from optuna.trial import TrialState
 
-from service.spec import SearchSpec
+from service.spec import Metric, SearchSpec
 from service.store import JobState
 from workers.child import ChildFailure, TrialCrashed
 from workers.context import WorkerContext
@@ -35,6 +35,9 @@ log = logging.getLogger(__name__)
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
 MAX_RETRIES = 2
+CALIBRATION = "calibration"
+CALIBRATIONS = ("none", "sigmoid", "isotonic")
+CALIBRATED_METRICS = frozenset({Metric.LOG_LOSS})
 SLICE_SLACK = 600.0  # RQ job timeout on top of the slice and one trial
 
 
@@ -261,6 +264,9 @@ class Shard:
         try:
             family = str(trial.suggest_categorical("family", self.families()))
             params = get_family(family).suggest(trial, self.fctx)
+            if self.fctx.is_classification and self.spec.metric in CALIBRATED_METRICS:
+                # probability calibration, fitted inside each training fold (inner 3-fold)
+                params[CALIBRATION] = str(trial.suggest_categorical(CALIBRATION, CALIBRATIONS))
         except Exception as exc:  # a broken search space: fail the trial, keep going
             self.fail(
                 study,

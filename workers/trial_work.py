@@ -73,7 +73,7 @@ def evaluate(
     entry = cache.get(request)
     family = get_family(request["family"])
     ctx = entry.data.context(int(request["seed"]))
-    template = family.build(dict(request["params"]), ctx)
+    template = build_candidate(family, dict(request["params"]), ctx)
     _inject_fault(request)
 
     fold_pause = _fold_pause()
@@ -189,11 +189,26 @@ def _fold_pause() -> float:
     return float(json.loads(raw).get("sleep_fold", 0.0)) if raw else 0.0
 
 
+def build_candidate(family: Any, params: dict[str, Any], ctx: Any) -> Any:
+    """The family's estimator, wrapped in probability calibration when the trial chose one.
+
+    ``CalibratedClassifierCV`` fits the candidate and its calibration map on an inner 3-fold
+    split of whatever rows it is given, so calibration stays inside each training fold.
+    """
+    method = params.pop("calibration", "none")
+    est = family.build(params, ctx)
+    if method in ("sigmoid", "isotonic") and ctx.is_classification:
+        from sklearn.calibration import CalibratedClassifierCV
+
+        est = CalibratedClassifierCV(est, method=method, cv=3)
+    return est
+
+
 def _candidate(member: dict[str, Any], data: Dataset, seed: int) -> Any:
     """Build one candidate and apply the stated refit rule for boosting rounds."""
     family = get_family(member["family"])
     ctx = data.context(seed)
-    est = family.build(dict(member["params"]), ctx)
+    est = build_candidate(family, dict(member["params"]), ctx)
     per_path: dict[str, list[int]] = {}
     for info in member.get("fit_info") or []:
         for path, rounds in info.items():
@@ -334,19 +349,28 @@ def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
         {int(k): v for k, v in request["scores"].items()},
         data,
     )
-    for name, part in (
-        ("significance", lambda: ex.significance(top, data, metric, seed, budget)),
-        ("bias_variance", lambda: ex.bias_variance_top(top, data, seed, budget)),
+    cand_scores = {c["id"]: float(c["score"]) for c in top if "score" in c}
+    total = budget.left()
+    parts = (  # cheapest first; each part may use its share of the budget, never more
         (
             "leakage",
-            lambda: ex.leakage_report(data, metric, request.get("dropped") or {}, seed, budget),
+            0.15,
+            lambda b: ex.leakage_report(data, metric, request.get("dropped") or {}, seed, b),
         ),
-    ):
+        ("significance", 0.45, lambda b: ex.significance(top, data, metric, seed, b)),
+        ("bias_variance", 0.2, lambda b: ex.bias_variance_top(top, data, seed, b)),
+        (
+            "composites",
+            0.2,
+            lambda b: ex.composite_diagnostics(top, cand_scores, data, metric, seed, b),
+        ),
+    )
+    for name, share, part in parts:
         if budget.left() <= 0:
             out["skipped"].append(name)
             out[name] = []
             continue
-        out[name] = part()
+        out[name] = part(ex.Budget(min(budget.left(), share * total)))
     return out
 
 
