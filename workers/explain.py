@@ -88,8 +88,8 @@ def significance(
     k = min(data.n_folds, 5)
     splits = repeated_kfold_indices(len(rows), y, data.task, repeats=REPEATS, folds=k, seed=seed)
     scores: dict[str, list[float]] = {}
-    for cand in top:
-        if budget.left() <= 0:
+    for i, cand in enumerate(top):
+        if budget.left() <= 0 and i >= 2:  # #1 and #2 always, so one comparison exists
             break
         est = _build(cand, data, seed)
         vals = []
@@ -137,7 +137,7 @@ def bias_variance_top(
     loss = "mse" if data.task == "regression" else "0-1_loss"
     out = []
     for cand in top:
-        if budget.left() <= 0:
+        if budget.left() <= 0 and out:  # the winner always, the others while time allows
             break
         est = _build(cand, data, seed)
         res = bias_variance(
@@ -221,7 +221,7 @@ def composite_diagnostics(
     out = []
     rows = data.scored_rows
     for cand in top:
-        if cand["family"] not in COMPOSITES or budget.left() <= 0:
+        if cand["family"] not in COMPOSITES or (budget.left() <= 0 and out):
             continue
         members, weights = _members_of(_build(cand, data, seed))
         if len(members) < 2:

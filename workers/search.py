@@ -172,6 +172,7 @@ class Shard:
                 break
             self.reap(study)
             self.run_trial(study)
+            self.ctx.doing.update(trial=None, family=None)
         self.ctx.doing.clear()
         self.hand_over(reason)
         return reason

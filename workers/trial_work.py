@@ -365,12 +365,10 @@ def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
             lambda b: ex.composite_diagnostics(top, cand_scores, data, metric, seed, b),
         ),
     )
-    for name, share, part in parts:
-        if budget.left() <= 0:
-            out["skipped"].append(name)
-            out[name] = []
-            continue
+    for name, share, part in parts:  # each part does at least its first item
         out[name] = part(ex.Budget(min(budget.left(), share * total)))
+        if not out[name] and name != "composites":
+            out["skipped"].append(name)
     return out
 
 
