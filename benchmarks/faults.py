@@ -26,7 +26,7 @@ def main() -> int:
                           *TESTS], cwd=ROOT, env=env, capture_output=True, text=True)
     figures: dict[str, list[str]] = defaultdict(list)
     for line in run.stdout.splitlines():
-        m = re.match(r"FIGURE (\S+) (.+)", line.strip())
+        m = re.search(r"FIGURE (\S+) (.+)", line)
         if m:
             figures[m.group(1)].append(m.group(2))
     summary = run.stdout.strip().splitlines()[-1] if run.stdout.strip() else "no output"
