@@ -33,6 +33,18 @@ def _frame() -> pd.DataFrame:
     return load_breast_cancer(as_frame=True).frame.rename(columns={"target": "benign"})
 
 
+def _submit(client: Client, **spec: Any) -> Any:
+    """A job on the breast-cancer table with this module's default budget."""
+    return client.submit(
+        _frame(), **{"target": "benign", "wall_seconds": 900, "trial_timeout": 120, **spec}
+    )
+
+
+def _faults(plan: dict[str, Any]) -> dict[str, str]:
+    """Worker environment: short leases and slices plus a fault-injection plan."""
+    return {**FAST, "TUTTI_FAULT_INJECT": json.dumps(plan)}
+
+
 def wait_until(cond: Callable[[], Any], timeout: float, every: float = 0.2) -> Any:
     end = time.monotonic() + timeout
     while time.monotonic() < end:
@@ -82,16 +94,13 @@ def _busy_worker(client: Client, pids: dict[int, Any]) -> tuple[int, dict[str, A
 def test_worker_killed_mid_trial_repeatedly(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
-    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.4})}
-    job = client.submit(
-        _frame(),
-        target="benign",
+    env = _faults({"sleep_fold": 0.4})
+    job = _submit(
+        client,
         max_trials=30,
         parallelism=3,
         seed=1,
         families=["boosting", "single"],
-        wall_seconds=900,
-        trial_timeout=120,
     )
     procs = {}
     for i in range(3):
@@ -120,7 +129,13 @@ def test_worker_killed_mid_trial_repeatedly(
             )
             procs[p.pid] = p
             time.sleep(2)
+        earlier: set[int] = set()
         for running, killed_at, victims, killed_wall in kills:
+            # prefer trials that were not already running at an earlier kill (an earlier
+            # victim's trial may still be waiting for the reaper)
+            running = (running - earlier) or running
+            earlier |= running
+
             # the killed worker's trial was one of those running at the kill: it is failed by
             # the reaper (its lease expired) within 60 s
             def reaped(running: set[int] = running) -> list[dict[str, Any]]:
@@ -160,16 +175,13 @@ def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None
     server.start()
     prefix = "rk"
     client = Client(url=server.url, prefix=prefix)
-    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.5})}
-    job = client.submit(
-        _frame(),
-        target="benign",
+    env = _faults({"sleep_fold": 0.5})
+    job = _submit(
+        client,
         max_trials=12,
         parallelism=2,
         seed=2,
         families=["boosting"],
-        wall_seconds=900,
-        trial_timeout=120,
     )
     workers = start_workers(server.url, prefix, 2, env=env, log=tmp_path / "w.log")
     try:
@@ -207,16 +219,13 @@ def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None
 def test_sigterm_finishes_the_current_trial_and_exits(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
-    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.6})}
-    job = client.submit(
-        _frame(),
-        target="benign",
+    env = _faults({"sleep_fold": 0.6})
+    job = _submit(
+        client,
         max_trials=8,
         parallelism=1,
         seed=3,
         families=["boosting"],
-        wall_seconds=900,
-        trial_timeout=120,
     )
     w = start_workers(redis_url, prefix, 1, burst=False, env=env, log=tmp_path / "w.log")
     beat = wait_until(
@@ -241,20 +250,13 @@ def test_sigterm_finishes_the_current_trial_and_exits(
 def test_candidates_that_raise_time_out_or_exhaust_memory_fail_cleanly(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
-    env = {
-        **FAST,
-        "TUTTI_FAULT_INJECT": json.dumps(
-            {"raise": [1], "sleep": {"2": 60}, "alloc_mb": {"3": 6000}}
-        ),
-    }
-    job = client.submit(
-        _frame(),
-        target="benign",
+    env = _faults({"raise": [1], "sleep": {"2": 60}, "alloc_mb": {"3": 6000}})
+    job = _submit(
+        client,
         max_trials=8,
         parallelism=1,
         seed=4,
         families=["single"],
-        wall_seconds=900,
         trial_timeout=8,
         memory_limit_mb=1500,
     )
@@ -279,16 +281,13 @@ def test_candidates_that_raise_time_out_or_exhaust_memory_fail_cleanly(
 def test_cancel_stops_workers_within_a_fold_and_keeps_best_so_far(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
-    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 1.0})}
-    job = client.submit(
-        _frame(),
-        target="benign",
+    env = _faults({"sleep_fold": 1.0})
+    job = _submit(
+        client,
         max_trials=200,
         parallelism=2,
         seed=5,
         families=["single"],
-        wall_seconds=900,
-        trial_timeout=120,
     )
     w = start_workers(redis_url, prefix, 2, env=env, log=tmp_path / "w.log")
     try:
@@ -311,10 +310,9 @@ def test_cancel_stops_workers_within_a_fold_and_keeps_best_so_far(
 def test_deadline_stops_the_search_in_time(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
-    env = {**FAST, "TUTTI_FAULT_INJECT": json.dumps({"sleep_fold": 0.5})}
-    job = client.submit(
-        _frame(),
-        target="benign",
+    env = _faults({"sleep_fold": 0.5})
+    job = _submit(
+        client,
         max_trials=500,
         parallelism=1,
         seed=6,
@@ -337,9 +335,8 @@ def test_deadline_stops_the_search_in_time(
 def test_extend_continues_the_same_study_and_finalizes_again(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
-    job = client.submit(
-        _frame(),
-        target="benign",
+    job = _submit(
+        client,
         max_trials=3,
         parallelism=1,
         seed=7,
