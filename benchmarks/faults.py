@@ -22,8 +22,13 @@ TESTS = ["tests/integration/test_faults.py", "tests/integration/test_memory.py"]
 
 def main() -> int:
     env = {**os.environ, "OMP_NUM_THREADS": "1"}
-    run = subprocess.run([sys.executable, "-m", "pytest", "-q", "-s", "-p", "no:cacheprovider",
-                          *TESTS], cwd=ROOT, env=env, capture_output=True, text=True)
+    run = subprocess.run(
+        [sys.executable, "-m", "pytest", "-q", "-s", "-p", "no:cacheprovider", *TESTS],
+        cwd=ROOT,
+        env=env,
+        capture_output=True,
+        text=True,
+    )
     figures: dict[str, list[str]] = defaultdict(list)
     for line in run.stdout.splitlines():
         m = re.search(r"FIGURE (\S+) (.+)", line)
@@ -34,18 +39,27 @@ def main() -> int:
     jobs_lost = 0 if run.returncode == 0 else "see failures"
     print("| figure | value |")
     print("|---|---|")
-    print(f"| faults injected and survived | {survived} "
-          f"({', '.join(figures['faults_survived'])}) |")
+    print(
+        f"| faults injected and survived | {survived} ({', '.join(figures['faults_survived'])}) |"
+    )
     print(f"| trials lost | {', '.join(figures['trials_lost']) or '—'} |")
     print(f"| jobs lost | {jobs_lost} |")
-    print(f"| seconds from worker kill to its trial failed | "
-          f"{', '.join(figures['kill_to_failed_seconds']) or '—'} |")
-    print(f"| seconds from cancel to all workers idle | "
-          f"{', '.join(figures['cancel_to_idle_seconds']) or '—'} |")
-    print(f"| trial-process RSS after warm-up (MiB) | "
-          f"{', '.join(figures['trial_process_rss_mib']) or '—'} |")
-    print(f"| trial-process memory drift over 200 trials | "
-          f"{', '.join(figures['trial_process_memory_drift']) or '—'} |")
+    print(
+        f"| seconds from worker kill to its trial failed | "
+        f"{', '.join(figures['kill_to_failed_seconds']) or '—'} |"
+    )
+    print(
+        f"| seconds from cancel to all workers idle | "
+        f"{', '.join(figures['cancel_to_idle_seconds']) or '—'} |"
+    )
+    print(
+        f"| trial-process RSS after warm-up (MiB) | "
+        f"{', '.join(figures['trial_process_rss_mib']) or '—'} |"
+    )
+    print(
+        f"| trial-process memory drift over 200 trials | "
+        f"{', '.join(figures['trial_process_memory_drift']) or '—'} |"
+    )
     print(f"\npytest: {summary}")
     return run.returncode
 

@@ -509,7 +509,3 @@ def progress_line(st: dict[str, Any]) -> str:
         f"[{bar}] {st['trials_done']}/{st['budget']} trials · best {st['metric']} {best}"
         f" · {_fmt_seconds(st['elapsed'])}{fails} · {st['state']}   "
     )
-
-
-def dumps(obj: Any) -> str:
-    return json.dumps(obj, indent=2, default=str)

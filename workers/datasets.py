@@ -77,23 +77,52 @@ class Dataset:
             yield train, test
 
     def context(self, seed: int) -> FamilyContext:
-        train_rows = int(len(self.search_rows) * (self.n_folds - 1) / max(self.n_folds, 1))
-        return FamilyContext(
+        return family_context(
             task=self.task,
-            random_state=seed,
-            n_rows=max(train_rows, 1),
-            numeric_columns=self.numeric,
-            categorical_columns=self.categorical,
-            high_cardinality_columns=self.high_cardinality,
+            seed=seed,
+            n_search_rows=len(self.search_rows),
+            n_folds=self.n_folds,
+            schema=self.schema,
+            high_cardinality=self.high_cardinality,
             n_classes=0 if self.classes is None else len(self.classes),
-            row_cap=ROW_CAP,
         )
 
 
-def _stratify_labels(y: np.ndarray, task: str, folds: int) -> np.ndarray | None:
-    if task != Task.REGRESSION.value:
-        return y
-    return None
+def split_columns(
+    schema: dict[str, str], high_cardinality: tuple[str, ...]
+) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """(numeric, low-cardinality categorical) feature columns of a schema."""
+    numeric = tuple(c for c, kind in schema.items() if kind == "numeric")
+    categorical = tuple(
+        c for c, kind in schema.items() if kind == "categorical" and c not in high_cardinality
+    )
+    return numeric, categorical
+
+
+def family_context(
+    *,
+    task: str,
+    seed: int,
+    n_search_rows: int,
+    n_folds: int,
+    schema: dict[str, str],
+    high_cardinality: tuple[str, ...],
+    n_classes: int,
+) -> FamilyContext:
+    """The context families suggest and build in; the worker (from the job record) and the
+    trial process (from the decoded table) both build it here, so they agree."""
+    numeric, categorical = split_columns(schema, high_cardinality)
+    train_rows = int(n_search_rows * (n_folds - 1) / max(n_folds, 1))
+    return FamilyContext(
+        task=task,
+        random_state=seed,
+        n_rows=max(train_rows, 1),
+        numeric_columns=numeric,
+        categorical_columns=categorical,
+        high_cardinality_columns=high_cardinality,
+        n_classes=n_classes,
+        row_cap=ROW_CAP,
+    )
 
 
 def assign_folds(
@@ -175,9 +204,8 @@ def build_dataset(frame: pd.DataFrame, record: dict[str, Any], spec: SearchSpec)
     X = frame[list(schema)]
     classes = np.unique(y) if task != Task.REGRESSION.value else None
     columns = record.get("columns") or {}
-    numeric = tuple(c for c, kind in schema.items() if kind == "numeric")
     high = tuple(columns.get("high_cardinality", ()))
-    categorical = tuple(c for c, kind in schema.items() if kind == "categorical" and c not in high)
+    numeric, categorical = split_columns(schema, high)
     return Dataset(
         X=X,
         y=y,

@@ -10,7 +10,6 @@ last shard to stop for good enqueues finalize.
 from __future__ import annotations
 
 import contextlib
-import json
 import logging
 import threading
 import time
@@ -26,6 +25,7 @@ from service.spec import Metric, SearchSpec
 from service.store import JobState
 from workers.child import ChildFailure, TrialCrashed
 from workers.context import WorkerContext
+from workers.datasets import family_context
 from workers.families import get_family
 from workers.families._base import FamilyContext
 from workers.journal import journal_storage
@@ -52,19 +52,14 @@ def derive_seed(*parts: int) -> int:
 def context_from_record(record: dict[str, Any], seed: int) -> FamilyContext:
     """The family context from the job record alone (the worker itself never decodes data)."""
     spec = SearchSpec.model_validate(record["spec"])
-    schema: dict[str, str] = record["schema"]
     cols = record.get("columns") or {}
-    high = tuple(cols.get("high_cardinality", ()))
-    n_rows = int(record["summary"]["rows"] * (1 - spec.holdout) * (spec.folds - 1) / spec.folds)
-    return FamilyContext(
+    return family_context(
         task=str(record["task"]),
-        random_state=seed,
-        n_rows=max(n_rows, 1),
-        numeric_columns=tuple(c for c, k in schema.items() if k == "numeric"),
-        categorical_columns=tuple(
-            c for c, k in schema.items() if k == "categorical" and c not in high
-        ),
-        high_cardinality_columns=high,
+        seed=seed,
+        n_search_rows=round(record["summary"]["rows"] * (1 - spec.holdout)),
+        n_folds=spec.folds,
+        schema=record["schema"],
+        high_cardinality=tuple(cols.get("high_cardinality", ())),
         n_classes=len(record.get("classes") or []),
     )
 
@@ -460,7 +455,3 @@ class Shard:
                     dict(t.params), user_attrs={"retry_of": t.number, "retries": retries + 1}
                 )
         return n
-
-
-def describe(row: dict[str, Any]) -> str:
-    return json.dumps(row, default=str)
