@@ -100,6 +100,7 @@ class SearchSpec(BaseModel):
                 "seed",
                 "parallelism",
                 "library_size",
+                "halving_rows",
                 "wall_seconds",
                 "trial_timeout",
                 "holdout",
@@ -126,6 +127,15 @@ class SearchSpec(BaseModel):
     seed: int = Field(default=0, ge=0, le=2**31 - 1)
     parallelism: int = Field(default=2, ge=1, le=256)
     library_size: int = Field(default=5, ge=0, le=100)
+    halving_rows: int | None = Field(
+        default=100_000,
+        ge=100,
+        description=(
+            "From this many search rows on, each trial first fits on a subsample of fold 0's "
+            "training rows and only candidates the pruner passes go on to all rows; "
+            "None turns it off."
+        ),
+    )
     priority: Literal["normal", "high"] = "normal"
     drop_columns: tuple[str, ...] = ()
     allow_leaks: bool = False

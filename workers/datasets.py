@@ -30,6 +30,11 @@ HOLDOUT = -2
 EXPANDING = "expanding"
 KFOLD = "kfold"
 ROW_CAP = 5000
+#: Successive halving over rows (tables of at least ``SearchSpec.halving_rows`` search rows):
+#: the rung fits on this share of fold 0's training rows, and on at least
+#: ``HALVING_MIN_RUNG`` rows (or half of them, whichever is fewer).
+HALVING_SHARE = 0.125
+HALVING_MIN_RUNG = 20_000
 
 
 @dataclass
@@ -46,6 +51,7 @@ class Dataset:
     numeric: tuple[str, ...]
     categorical: tuple[str, ...]
     high_cardinality: tuple[str, ...]
+    halving_rows: int | None = None
 
     @property
     def n_folds(self) -> int:
@@ -75,6 +81,21 @@ class Dataset:
             else:
                 train = np.flatnonzero((ids >= 0) & (ids != f))
             yield train, test
+
+    def rung(self, seed: int) -> tuple[np.ndarray, np.ndarray] | None:
+        """(training subsample, test rows) of the row-halving rung, or None for small tables.
+
+        The subsample is drawn from fold 0's training rows with a seed of the job, so every
+        trial's rung score comes from the same rows and the pruner compares like with like.
+        """
+        if self.halving_rows is None or len(self.search_rows) < self.halving_rows:
+            return None
+        train, test = next(self.folds())
+        size = max(int(len(train) * HALVING_SHARE), min(HALVING_MIN_RUNG, len(train) // 2))
+        if not 0 < size < len(train):
+            return None
+        rng = np.random.default_rng(seed)
+        return np.sort(rng.choice(train, size=size, replace=False)), test
 
     def context(self, seed: int) -> FamilyContext:
         return family_context(
@@ -195,10 +216,50 @@ def target_vector(series: pd.Series, task: str) -> np.ndarray:
     return values
 
 
+def float32_if_exact(values: np.ndarray) -> np.ndarray | None:
+    """A float32 copy of a float64 column when that is exact enough for fitting, else None.
+
+    "Exact enough": no value moves by more than 1e-6 of the column's standard deviation and
+    nothing overflows. Integers below 2**24 and features of ordinary scale pass (float32 keeps
+    about seven significant digits); timestamps in seconds or large identifiers, whose spread
+    is small next to their offset, keep float64.
+    """
+    if values.dtype != np.float64 or len(values) == 0:
+        return None
+    with np.errstate(over="ignore", invalid="ignore"):
+        small = values.astype(np.float32)
+        if np.count_nonzero(np.isinf(small)) != np.count_nonzero(np.isinf(values)):
+            return None
+        finite = np.isfinite(values)
+        if not finite.any():
+            return small
+        err = float(np.max(np.abs(small[finite].astype(np.float64) - values[finite])))
+        spread = float(np.std(values[finite]))
+    return small if err <= 1e-6 * spread else None
+
+
+def compact_floats(frame: pd.DataFrame, columns: list[str]) -> None:
+    """Replace float64 ``columns`` of ``frame`` by float32 where exact enough, in place.
+
+    Column by column, so the old array is freed before the next is converted (the decoded
+    frame keeps one block per column) and the peak stays near one copy of the table.
+    """
+    for name in columns:
+        small = float32_if_exact(frame[name].to_numpy())
+        if small is not None:
+            frame[name] = small
+
+
 def build_dataset(frame: pd.DataFrame, record: dict[str, Any], spec: SearchSpec) -> Dataset:
-    """Turn the decoded table and the job record into a :class:`Dataset`."""
+    """Turn the decoded table and the job record into a :class:`Dataset`.
+
+    Numeric feature columns of ``frame`` are narrowed to float32 in place where exact enough
+    (:func:`float32_if_exact`); the target, order and group columns are left as they are.
+    """
     task = str(record["task"])
     schema: dict[str, str] = dict(record["schema"])
+    keep = {spec.target, spec.order_column, spec.group_column}
+    compact_floats(frame, [c for c, kind in schema.items() if kind == "numeric" and c not in keep])
     y = target_vector(frame[spec.target], task)
     fold_ids, mode = assign_folds(frame, y, spec, task)
     X = frame[list(schema)]
@@ -217,4 +278,5 @@ def build_dataset(frame: pd.DataFrame, record: dict[str, Any], spec: SearchSpec)
         numeric=numeric,
         categorical=categorical,
         high_cardinality=high,
+        halving_rows=spec.halving_rows,
     )

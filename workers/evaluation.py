@@ -32,6 +32,8 @@ class Evaluation:
         predict_ms_per_1000: mean prediction time per 1,000 rows.
         fit_info: per-fold facts a refit needs (e.g. boosting's best iteration per param path).
         complete: every fold was evaluated.
+        size_bytes: pickle length of the last fold's fitted model.
+        rung_score: score of the row-halving rung (large tables only; see ``Dataset.rung``).
     """
 
     fold_scores: list[float]
@@ -41,6 +43,7 @@ class Evaluation:
     fit_info: list[dict[str, int]] = field(default_factory=list)
     complete: bool = True
     size_bytes: int | None = None
+    rung_score: float | None = None
 
     @property
     def mean(self) -> float:
@@ -65,8 +68,13 @@ def cross_validate(
     *,
     on_fold: Callable[[int, float], bool] | None = None,
     fit_info: Callable[[Any], dict[str, int]] | None = None,
+    seed: int = 0,
 ) -> Evaluation:
     """Fit a clone of ``template`` on each fold's training rows and score its test rows.
+
+    On a large table (``data.rung(seed)`` is not None) a first fit on a row subsample of fold
+    0 is scored and passed to ``on_fold`` as fold -1 before the full folds: successive halving
+    over rows, with the caller's pruner deciding who graduates to all rows.
 
     Args:
         template: unfitted estimator (preprocessing included).
@@ -74,6 +82,7 @@ def cross_validate(
         metric: what to score with (greater is better internally).
         on_fold: called after each fold with (fold, score); returning False stops early.
         fit_info: extracts per-fold facts from the fitted estimator.
+        seed: the job's seed (fixes the rung's subsample).
 
     Raises:
         Pruned: ``on_fold`` asked to stop; ``args[0]`` carries the partial Evaluation.
@@ -84,6 +93,19 @@ def cross_validate(
     fit_s = 0.0
     pred_ms: list[float] = []
     X, y = data.X, data.y
+    rung = data.rung(seed) if on_fold is not None else None
+    rung_score: float | None = None
+    if on_fold is not None and rung is not None:
+        sub, held = rung
+        est = clone(template)
+        t0 = time.perf_counter()
+        est.fit(X.iloc[sub], y[sub])
+        fit_s += time.perf_counter() - t0
+        pred = metrics.predictions(est, X.iloc[held], data.task, data.classes)
+        rung_score = metrics.score(metric, y[held], pred, data.classes)
+        del est, pred
+        if not on_fold(-1, rung_score):
+            raise Pruned(Evaluation([], oof, fit_s, float("nan"), [], False, None, rung_score))
     for fold, (train, test) in enumerate(data.folds()):
         est = clone(template)
         t0 = time.perf_counter()
@@ -98,8 +120,14 @@ def cross_validate(
         if fit_info is not None:
             info.append(fit_info(est))
         if on_fold is not None and not on_fold(fold, scores[-1]):
-            raise Pruned(Evaluation(scores, oof, fit_s, float(np.mean(pred_ms)), info, False))
-    return Evaluation(scores, oof, fit_s, _latency(est, X, test), info, True, _size(est))
+            raise Pruned(
+                Evaluation(
+                    scores, oof, fit_s, float(np.mean(pred_ms)), info, False, None, rung_score
+                )
+            )
+    return Evaluation(
+        scores, oof, fit_s, _latency(est, X, test), info, True, _size(est), rung_score
+    )
 
 
 def _latency(est: Any, X: Any, test: np.ndarray) -> float:

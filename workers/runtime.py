@@ -38,3 +38,21 @@ def die_with_parent(sig: int = signal.SIGKILL) -> None:
         libc = ctypes.CDLL("libc.so.6", use_errno=True)
         pr_set_pdeathsig = 1
         libc.prctl(pr_set_pdeathsig, sig, 0, 0, 0)
+
+
+def return_freed_memory() -> None:
+    """Make freed table-sized buffers go back to the OS, so peak RSS tracks live data.
+
+    glibc raises its mmap threshold each time a large block is freed, after which blocks of
+    that size come from the heap and stay in the process; a fixed threshold keeps every
+    buffer over 128 KiB mmap-ed and returned on free. Arrow's own pool (mimalloc) keeps what
+    it freed as well, so Arrow allocates through the system allocator here.
+    """
+    with contextlib.suppress(Exception):
+        libc = ctypes.CDLL("libc.so.6")
+        m_mmap_threshold = -3
+        libc.mallopt(m_mmap_threshold, 128 * 1024)
+    with contextlib.suppress(Exception):
+        import pyarrow as pa
+
+        pa.set_memory_pool(pa.system_memory_pool())

@@ -72,7 +72,7 @@ def open_study(ctx: WorkerContext, job_id: str, seed: int) -> optuna.Study:
         sampler = optuna.samplers.TPESampler(
             seed=seed, multivariate=True, group=True, n_startup_trials=10
         )
-    pruner = optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=1)
+    pruner = optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=0)
     return optuna.create_study(
         study_name=job_id,
         storage=storage,
@@ -287,10 +287,16 @@ class Shard:
             "memory_mb": self.spec.memory_limit_mb,
         }
         scores: list[float] = []
+        first_step = [0]  # 1 when the table is large enough for a row-halving rung
 
         def on_fold(fold: int, score: float) -> bool:
-            scores.append(score)
-            trial.report(float(np.mean(scores)), fold)
+            if fold < 0:  # the rung: a fit on a row subsample, step 0 of the pruner
+                first_step[0] = 1
+                row["rung_score"] = score
+                trial.report(score, 0)
+            else:
+                scores.append(score)
+                trial.report(float(np.mean(scores)), fold + first_step[0])
             if self.store.state(self.job_id) is JobState.CANCELLED:
                 row["note"] = "cancelled"
                 return False
@@ -363,7 +369,12 @@ class Shard:
                 journal_seconds=getattr(backend, "busy_seconds", 0.0) - busy0,
             )
             self.store.record_trial(self.job_id, row)
-            self.log(f"trial {trial.number} {family} pruned after {len(scores)} folds")
+            where = (
+                f"after {len(scores)} folds"
+                if scores or not first_step[0]
+                else f"at the row-halving rung (score {row['rung_score']:.5f})"
+            )
+            self.log(f"trial {trial.number} {family} pruned {where}")
 
     def _tell(self, study: optuna.Study, trial: optuna.Trial, **kwargs: Any) -> bool:
         try:

@@ -20,7 +20,7 @@ import numpy as np
 from sklearn.pipeline import Pipeline
 
 from service.connection import connect
-from service.data import decode
+from service.data import parquet_table, table_frame
 from service.keys import Keys
 from service.spec import Metric, SearchSpec
 from service.store import JobStore
@@ -60,8 +60,10 @@ class DataCache:
         self._entry = None  # free the previous table before decoding the next
         spec = SearchSpec.model_validate(record["spec"])
         raw = store.get_data(str(record["data"]))
-        frame = decode(raw)
-        del raw
+        table = parquet_table(raw)
+        del raw  # the encoded bytes go before the frame is built
+        frame = table_frame(table)
+        del table
         self._entry = _Entry(key, spec, record, build_dataset(frame, record, spec))
         return self._entry
 
@@ -92,6 +94,7 @@ def evaluate(
             Metric(entry.spec.metric),
             on_fold=on_fold,
             fit_info=ensembling.best_iterations,
+            seed=int(request["seed"]),
         )
         kind = "done"
     except Pruned as stop:
@@ -101,10 +104,11 @@ def evaluate(
         "fold_scores": ev.fold_scores,
         "oof": ev.oof.astype(np.float32) if kind == "done" else None,
         "fit_seconds": ev.fit_seconds,
-        "predict_ms": ev.predict_ms_per_1000,
+        "predict_ms": ev.predict_ms_per_1000 if np.isfinite(ev.predict_ms_per_1000) else None,
         "fit_info": ev.fit_info,
         "members": describe_members(template),
         "size_bytes": ev.size_bytes,
+        "rung_score": ev.rung_score,
     }
 
 

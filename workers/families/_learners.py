@@ -15,6 +15,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+import numpy as np
 from lightgbm import LGBMClassifier, LGBMRegressor
 from sklearn.calibration import CalibratedClassifierCV
 from sklearn.compose import ColumnTransformer, TransformedTargetRegressor
@@ -89,6 +90,7 @@ def make_preprocessor(ctx: FamilyContext, *, scale: bool, encoding: str = "oneho
                 min_frequency=5,
                 max_categories=30,
                 sparse_output=False,
+                dtype=np.float32,
             )
         else:
             encoder = OrdinalEncoder(
@@ -96,6 +98,7 @@ def make_preprocessor(ctx: FamilyContext, *, scale: bool, encoding: str = "oneho
                 unknown_value=-1,
                 min_frequency=5,
                 max_categories=60,
+                dtype=np.float32,
             )
         parts.append(
             (
