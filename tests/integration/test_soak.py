@@ -12,14 +12,30 @@ from tests.conftest import start_workers
 pytestmark = [pytest.mark.integration, pytest.mark.slow]
 
 
-def test_forty_jobs_at_once_all_finish(client, redis_url: str, prefix: str,  # type: ignore[no-untyped-def]
-                                       tmp_path: Path) -> None:
+def test_forty_jobs_at_once_all_finish(
+    client,
+    redis_url: str,
+    prefix: str,  # type: ignore[no-untyped-def]
+    tmp_path: Path,
+) -> None:
     frame = load_iris(as_frame=True).frame
-    jobs = [client.submit(frame, target="target", max_trials=2, parallelism=1, folds=3,
-                          families=["single"], seed=i, library_size=0, wall_seconds=900)
-            for i in range(40)]
-    workers = start_workers(redis_url, prefix, 2, log=tmp_path / "w.log",
-                            env={"TUTTI_LEASE_SECONDS": "5"})
+    jobs = [
+        client.submit(
+            frame,
+            target="target",
+            max_trials=2,
+            parallelism=1,
+            folds=3,
+            families=["single"],
+            seed=i,
+            library_size=0,
+            wall_seconds=900,
+        )
+        for i in range(40)
+    ]
+    workers = start_workers(
+        redis_url, prefix, 2, log=tmp_path / "w.log", env={"TUTTI_LEASE_SECONDS": "5"}
+    )
     try:
         states = [job.wait(timeout=900, poll=0.5)["state"] for job in jobs]
     finally:
