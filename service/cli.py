@@ -6,11 +6,15 @@ import argparse
 import json
 import os
 import sys
+import time
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from typing import Any, TextIO
 
 from service.errors import EnsembleSearchError, InvalidSpecError
 
+#: Tables whose Parquet bytes reach this size get an upload progress bar (one store chunk).
+BAR_MIN_BYTES = 64 * 1024 * 1024
 EPILOG = "Set TUTTI_REDIS_URL (or --redis-url) to share one Redis between machines."
 
 
@@ -58,12 +62,42 @@ def cmd_submit(args: argparse.Namespace) -> int:
             )
         fields[key.strip()] = _parse_value(value)
     client = _client(args)
-    job = client.submit(args.data, **fields)
+    job = client.submit(args.data, **fields, upload_progress=_upload_bar(sys.stderr))
     print(job.id)
     if args.wait:
         job.wait(progress=True)
         _print_board(job.leaderboard(), limit=10)
     return 0
+
+
+def _upload_bar(out: TextIO, min_bytes: int = BAR_MIN_BYTES) -> Callable[[int, int], None]:
+    """A one-line upload progress bar on ``out`` for tables of at least ``min_bytes``.
+
+    Redraws in place on a terminal; elsewhere (logs, CI) it prints one line per quarter.
+    """
+    t0 = time.monotonic()
+    tty = out.isatty()
+    shown = [-1]
+
+    def show(done: int, total: int) -> None:
+        if total < min_bytes:
+            return
+        frac = done / total if total else 1.0
+        step = int(frac * 4)
+        if not tty and step == shown[0]:
+            return
+        shown[0] = step
+        bar = "#" * round(30 * frac)
+        line = (
+            f"upload [{bar:<30}] {done / 1e6:,.0f}/{total / 1e6:,.0f} MB "
+            f"{time.monotonic() - t0:.1f} s"
+        )
+        out.write(f"\r{line}" if tty else f"{line}\n")
+        if tty and done >= total:
+            out.write("\n")
+        out.flush()
+
+    return show
 
 
 def _fmt(value: Any, digits: int = 4) -> str:

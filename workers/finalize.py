@@ -202,12 +202,14 @@ class Finalizer:
         started = float(self.record.get("started_at") or time.time())
         searched = max(time.time() - started, 0.0)
         # explanations cost at most a quarter of the search time (at least 30 s), never more
-        # than 60% of the time left before the deadline
+        # than 60% of the time left before the deadline; with less than 30 s to spend, the
+        # parts that fit models are skipped (listed as such) so a short job ends on time
         budget = min(
             max(EXPLAIN_SHARE * searched, EXPLAIN_MIN_SECONDS),
             max(self.time_left() * 0.6, 0.0),
             EXPLAIN_MAX_SECONDS,
         )
+        fits_allowed = budget >= EXPLAIN_MIN_SECONDS
         top = [
             {
                 "id": c["id"],
@@ -228,6 +230,7 @@ class Finalizer:
                     scores={str(r["number"]): float(r["score"]) for r in board},
                     dropped=self.record.get("dropped") or {},
                     budget_seconds=budget,
+                    fits_allowed=fits_allowed,
                 ),
                 timeout=budget + max(self.spec.trial_timeout, 120.0),
             )

@@ -39,6 +39,12 @@ CALIBRATION = "calibration"
 CALIBRATIONS = ("none", "sigmoid", "isotonic")
 CALIBRATED_METRICS = frozenset({Metric.LOG_LOSS})
 SLICE_SLACK = 600.0  # RQ job timeout on top of the slice and one trial
+#: Finalize refits the winner and, for a library ensemble, its members: the shards stop early
+#: enough for this many of the best trials' all-rows refits (estimated from their fold fits,
+#: times REFIT_SAFETY) to fit before the hard deadline.
+REFIT_ESTIMATE_TOP = 5
+REFIT_SAFETY = 2.0
+REFIT_ESTIMATE_EVERY = 5.0
 
 
 def derive_seed(*parts: int) -> int:
@@ -147,6 +153,8 @@ class Shard:
         self.store.transition(self.job_id, JobState.RUNNING, allowed_from=[JobState.QUEUED])
         started = float(self.store.set_field_once(self.job_id, "started_at", repr(time.time())))
         self.deadlines = Deadlines.of(self.spec, started)
+        self.started = started
+        self._reserve, self._reserve_at = 0.0, float("-inf")
         n_slice = int(self.store.r.hincrby(self.store.keys.job(self.job_id), "slices", 1))
         seed = derive_seed(self.spec.seed, self.shard, n_slice)
         self.fctx = context_from_record(self.record, self.spec.seed)
@@ -176,13 +184,32 @@ class Shard:
         """Why the shard must stop now ('' to go on); job-level reasons come first."""
         if self.store.state(self.job_id) is JobState.CANCELLED:
             return "cancelled"
-        if time.time() >= self.deadlines.search:
+        now = time.time()
+        if now >= self.deadlines.search or now + self.refit_reserve() >= self.deadlines.hard:
             return "deadline"
         if self.store.failures(self.job_id) >= self.spec.failure_cap:
             return "failure_cap"
         if self.ctx.stop.is_set():
             return "worker_stop"
         return ""
+
+    def refit_reserve(self) -> float:
+        """Seconds finalize is expected to need for its refits (0 until half the time is gone).
+
+        The best trials' total fold-fit seconds ÷ (folds − 1) estimates one all-rows refit each
+        (a fold trains on (k − 1)/k of the rows); the sum over the top few covers a library
+        ensemble's members. Read from the board at most every few seconds.
+        """
+        now = time.time()
+        span = self.deadlines.hard - self.started
+        if not np.isfinite(span) or now < self.started + 0.5 * span:
+            return 0.0
+        if now - self._reserve_at >= REFIT_ESTIMATE_EVERY:
+            rows = self.store.board(self.job_id, limit=REFIT_ESTIMATE_TOP)
+            folds = max(self.spec.folds - 1, 1)
+            need = sum(float(r.get("fit_seconds") or 0.0) / folds for r in rows)
+            self._reserve, self._reserve_at = REFIT_SAFETY * need, now
+        return self._reserve
 
     def hand_over(self, reason: str) -> None:
         """Continue in a new slice, or stop for good (and finalize if this was the last)."""

@@ -369,7 +369,14 @@ def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
             lambda b: ex.composite_diagnostics(top, cand_scores, data, metric, seed, b),
         ),
     )
-    for name, share, part in parts:  # each part does at least its first item
+    # each part does at least its first item (the winner, or #1 against #2), unless the job's
+    # deadline left too little time for explanations that fit models at all
+    fits_allowed = bool(request.get("fits_allowed", True))
+    for name, share, part in parts:
+        if not fits_allowed:
+            out[name] = []
+            out["skipped"].append(name)
+            continue
         out[name] = part(ex.Budget(min(budget.left(), share * total)))
         if not out[name] and name != "composites":
             out["skipped"].append(name)
