@@ -28,6 +28,7 @@ from service.spec import Metric, SearchSpec
 from workers.datasets import build_dataset
 from workers.evaluation import Pruned, cross_validate
 from workers.families import get_family
+from workers.search import make_pruner
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 FAMILIES = ("boosting", "bagging", "single")
@@ -54,11 +55,7 @@ def run(name: str, trials: int, prune: bool, seed: int = 0) -> tuple[int, float,
         sampler = optuna.samplers.TPESampler(
             seed=seed, multivariate=True, group=True, n_startup_trials=10
         )
-    pruner = (
-        optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=1)
-        if prune
-        else optuna.pruners.NopPruner()
-    )
+    pruner = make_pruner() if prune else optuna.pruners.NopPruner()
     study = optuna.create_study(direction="maximize", sampler=sampler, pruner=pruner)
     fits = 0
     best: tuple[float, float] = (-np.inf, 0.0)

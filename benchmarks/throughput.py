@@ -57,6 +57,7 @@ from workers.evaluation import Pruned, cross_validate
 from workers.families import get_family
 from workers.families._learners import LEARNERS
 from workers.journal import journal_storage
+from workers.search import make_pruner
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
@@ -186,7 +187,7 @@ def make_sampler_and_pruner(seed: int) -> tuple[optuna.samplers.BaseSampler, Any
         sampler = optuna.samplers.TPESampler(
             seed=seed, multivariate=True, group=True, n_startup_trials=10
         )
-    pruner = optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=1)
+    pruner = make_pruner()
     return sampler, pruner
 
 

@@ -70,6 +70,15 @@ def context_from_record(record: dict[str, Any], seed: int) -> FamilyContext:
     )
 
 
+def make_pruner() -> optuna.pruners.BasePruner:
+    """Median pruning on the running fold mean, from the first step on, after 5 trials.
+
+    Step 0 is the row-halving rung on large tables (see ``Dataset.rung``), else fold 0; a
+    trial is never pruned after its last fold (the shard answers that itself).
+    """
+    return optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=0)
+
+
 def open_study(ctx: WorkerContext, job_id: str, seed: int) -> optuna.Study:
     """Create or load the job's study on the Redis journal, with a shard-specific sampler."""
     storage = journal_storage(ctx.store.r, ctx.store.keys.journal(job_id))
@@ -78,12 +87,11 @@ def open_study(ctx: WorkerContext, job_id: str, seed: int) -> optuna.Study:
         sampler = optuna.samplers.TPESampler(
             seed=seed, multivariate=True, group=True, n_startup_trials=10
         )
-    pruner = optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=0)
     return optuna.create_study(
         study_name=job_id,
         storage=storage,
         sampler=sampler,
-        pruner=pruner,
+        pruner=make_pruner(),
         direction="maximize",
         load_if_exists=True,
     )
