@@ -117,3 +117,36 @@ def test_small_tables_have_no_rung() -> None:
     data = _dataset(_breast_cancer())  # 569 rows < the default 100,000
     assert data.rung(seed=0) is None
     assert _dataset(_breast_cancer(), halving_rows=None).rung(seed=0) is None
+
+
+def test_stacking_on_many_rows_fits_on_a_capped_subsample(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Above STACK_ROW_CAP training rows the whole stack (inner CV included) sees a stratified
+    subsample; below it the stack is scikit-learn's StackingClassifier as it is."""
+    from sklearn.ensemble import StackingClassifier
+
+    from workers.families import get_family, stacking
+    from workers.families._base import FamilyContext
+
+    frame = _breast_cancer()
+    X, y = frame.drop(columns="target"), frame["target"].to_numpy()
+    fam = get_family("stacking")
+
+    def ctx(n_rows: int) -> FamilyContext:
+        return FamilyContext(
+            task="binary",
+            random_state=0,
+            n_rows=n_rows,
+            numeric_columns=tuple(X.columns),
+            categorical_columns=(),
+            high_cardinality_columns=(),
+            n_classes=2,
+        )
+
+    small = fam.build(fam.defaults(ctx(len(y)))[0], ctx(len(y)))
+    assert isinstance(small.steps[-1][1], StackingClassifier)
+    monkeypatch.setattr(stacking, "STACK_ROW_CAP", 300)
+    capped = fam.build(fam.defaults(ctx(len(y)))[0], ctx(len(y))).fit(X, y)
+    model = capped.steps[-1][1]
+    assert isinstance(model.estimator_, StackingClassifier)
+    assert model.n_rows_fitted_ <= 300 + 2  # stratified: at most one extra row per class
+    assert capped.predict_proba(X).shape == (len(y), 2)

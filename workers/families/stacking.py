@@ -7,6 +7,7 @@ from typing import TYPE_CHECKING, Any
 from sklearn.ensemble import StackingClassifier, StackingRegressor
 from sklearn.pipeline import Pipeline
 
+from workers.ensembling import RowCap
 from workers.families._base import BaseFamily, FamilyContext
 from workers.families._learners import (
     LEARNERS,
@@ -26,6 +27,9 @@ if TYPE_CHECKING:
 
 #: Members of the optional second layer (their library defaults).
 SECOND_LAYER = ("linear", "lgbm")
+#: Training rows above which the whole stack (inner CV, members, meta-model) fits on a
+#: stratified subsample: its inner CV costs (cv + 1) fits of every member.
+STACK_ROW_CAP = 50_000
 
 
 class StackingFamily(BaseFamily):
@@ -72,6 +76,16 @@ class StackingFamily(BaseFamily):
             n_jobs=1,
         )
         prep = make_preprocessor(ctx, scale=True, encoding="onehot")
+        if ctx.n_rows > STACK_ROW_CAP:  # the inner CV multiplies every member's fits
+            return Pipeline(
+                [
+                    ("prep", prep),
+                    (
+                        "model",
+                        RowCap(stack, max_rows=STACK_ROW_CAP, random_state=ctx.random_state),
+                    ),
+                ]
+            )
         return Pipeline([("prep", prep), ("model", stack)])
 
     def defaults(self, ctx: FamilyContext) -> list[Params]:
