@@ -328,8 +328,12 @@ def test_deadline_stops_the_search_in_time(
     rec = job.record()
     assert status["state"] == "finished"
     assert rec["stop_reason"] == "deadline"
-    # search stops early enough that finalize also ends by then (+ at most one trial timeout)
-    assert rec["finalized_at"] - rec["started_at"] <= 25 + 10
+    # search stops early enough for the refits; explanations that fit models are skipped
+    # (listed as such) when the deadline leaves less than 30 s, so finalize ends about on time
+    assert rec["finalized_at"] - rec["started_at"] <= 25 + 3
+    explain = job.extras()["explain"]
+    assert {"significance", "bias_variance"} <= set(explain["skipped"])
+    assert explain["honest"]  # the honest estimate needs no fits: always there
 
 
 def test_extend_continues_the_same_study_and_finalizes_again(
