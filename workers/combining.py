@@ -62,6 +62,31 @@ class _Combiner(BaseEstimator):
         raise NotImplementedError
 
 
+def combine_probas(
+    probas: list[np.ndarray],
+    mode: str,
+    weights: Any = None,
+    coef: Any = None,
+    intercept: Any = None,
+) -> np.ndarray:
+    """Class probabilities of a library ensemble from its members' probabilities.
+
+    The one rule both the exported classifier and finalize (on stored out-of-fold
+    predictions, e.g. to tune a decision threshold) apply.
+    """
+    if mode == "average":
+        w = np.asarray(weights, dtype=float)
+        return np.asarray(sum(wi * p for wi, p in zip(w, probas, strict=True)) / w.sum())
+    c = np.atleast_2d(np.asarray(coef, dtype=float))
+    b = np.atleast_1d(np.asarray(intercept, dtype=float))
+    if probas[0].shape[1] == 2:
+        feats = np.column_stack([p[:, 1] for p in probas])
+        z = feats @ c.ravel() + b[0]
+        p1 = 1.0 / (1.0 + np.exp(-z))
+        return np.column_stack([1.0 - p1, p1])
+    return _softmax(np.hstack(probas) @ c.T + b)
+
+
 class LinearCombinerClassifier(ClassifierMixin, _Combiner):
     """Members' class probabilities averaged with weights, or fed to a fitted logistic model."""
 
@@ -79,19 +104,7 @@ class LinearCombinerClassifier(ClassifierMixin, _Combiner):
     def predict_proba(self, X: Any) -> np.ndarray:
         check_is_fitted(self)
         probas = [self._proba(est, X) for est in self.estimators_]
-        if self.mode == "average":
-            w = np.asarray(self.weights, dtype=float)
-            out = sum(wi * p for wi, p in zip(w, probas, strict=True)) / w.sum()
-            return np.asarray(out)
-        coef = np.atleast_2d(np.asarray(self.coef, dtype=float))
-        b = np.atleast_1d(np.asarray(self.intercept, dtype=float))
-        if len(self.classes_) == 2:
-            feats = np.column_stack([p[:, 1] for p in probas])
-            z = feats @ coef.ravel() + b[0]
-            p1 = 1.0 / (1.0 + np.exp(-z))
-            return np.column_stack([1.0 - p1, p1])
-        feats = np.hstack(probas)
-        return _softmax(feats @ coef.T + b)
+        return combine_probas(probas, self.mode, self.weights, self.coef, self.intercept)
 
     def predict(self, X: Any) -> np.ndarray:
         return self.classes_[np.argmax(self.predict_proba(X), axis=1)]

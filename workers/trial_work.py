@@ -165,17 +165,33 @@ def _decision_threshold(request: dict[str, Any], cache: DataCache, entry: _Entry
     """For binary label metrics, the probability cut-off that maximises the metric.
 
     Chosen on the winner's stored out-of-fold predictions (never on rows a model was fitted
-    on); the exported pipeline then predicts with that cut-off instead of 0.5.
+    on; for a library ensemble, its members' combined by the ensemble's rule); the exported
+    pipeline then predicts with that cut-off instead of 0.5.
     """
     data, metric = entry.data, Metric(entry.spec.metric)
     if data.task != "binary" or metric not in THRESHOLD_METRICS or data.classes is None:
         return None
     store = cache.store(request["redis_url"], request["prefix"])
-    blob = store.r.get(store.keys.oof(request["job_id"], int(request["members"][0]["number"])))
-    if blob is None:
+    blobs = [
+        store.r.get(store.keys.oof(request["job_id"], int(m["number"])))
+        for m in request["members"]
+    ]
+    if any(b is None for b in blobs):
         return None
     rows = data.scored_rows
-    proba = oof_array(blob)[rows][:, 1]
+    probas = [oof_array(b)[rows].astype(float) for b in blobs]
+    combiner = request.get("combiner")
+    if combiner:  # a library ensemble: its members' out-of-fold rows, combined by its rule
+        probas = [
+            combining.combine_probas(
+                probas,
+                combiner["mode"],
+                combiner.get("weights"),
+                combiner.get("coef"),
+                combiner.get("intercept"),
+            )
+        ]
+    proba = probas[0][:, 1]
     y = data.y[rows]
     best_t, best = 0.5, -np.inf
     for t in np.unique(np.quantile(proba, np.linspace(0.01, 0.99, 99))):
@@ -253,7 +269,7 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     pipe: Any = Pipeline(
         [("frame", ensembling.FrameNormalizer(schema=data.schema)), ("model", model)]
     )
-    threshold = _decision_threshold(request, cache, entry) if not combiner else None
+    threshold = _decision_threshold(request, cache, entry)
     if threshold is not None:
         from sklearn.model_selection import FixedThresholdClassifier
 
@@ -270,6 +286,10 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     hold = data.holdout_rows
     if len(hold):
         pred = metrics.predictions(pipe, data.X.iloc[hold], data.task, data.classes)
+        if threshold is not None and data.classes is not None:
+            # score the labels the exported pipeline predicts (the tuned threshold), not argmax
+            labels = np.asarray(pipe.predict(data.X.iloc[hold]))
+            pred = (labels[:, None] == data.classes[None, :]).astype(float)
         holdout = metrics.natural_score(Metric(spec.metric), data.y[hold], pred, data.classes)
     blob = sio.dumps(pipe, compression=zipfile.ZIP_DEFLATED)
     return {

@@ -1,0 +1,53 @@
+"""F1 jobs: the exported pipeline predicts with the tuned threshold, and the hold-out score
+is the score of exactly those predictions on the reserved rows."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+from sklearn.datasets import load_breast_cancer
+from sklearn.metrics import f1_score
+from sklearn.model_selection import train_test_split
+
+from service.client import Client
+from tests.conftest import start_workers
+
+pytestmark = pytest.mark.integration
+
+
+def test_f1_threshold_and_holdout_score_match_a_hand_computation(
+    client: Client, redis_url: str, prefix: str, tmp_path: Path
+) -> None:
+    frame = load_breast_cancer(as_frame=True).frame  # scikit-learn bundled (UCI WDBC)
+    job = client.submit(
+        frame,
+        target="target",
+        metric="f1",
+        holdout=0.2,
+        families=["single"],
+        max_trials=4,
+        parallelism=1,
+        wall_seconds=600,
+        seed=5,
+    )
+    workers = start_workers(redis_url, prefix, 1, log=tmp_path / "w.log")
+    try:
+        status = job.wait(timeout=600)
+    finally:
+        workers.wait(timeout=120)
+    assert status["state"] == "finished", (tmp_path / "w.log").read_text()[-3000:]
+    meta = job.artifact_meta()
+    threshold = meta["decision_threshold"]
+    assert threshold is not None and 0.0 < threshold < 1.0, meta
+    model = job.best_pipeline()
+    X, y = frame.drop(columns="target"), frame["target"].to_numpy()
+    # the predicted labels are the probabilities cut at the tuned threshold
+    proba = model.predict_proba(X)[:, 1]
+    assert np.array_equal(model.predict(X), (proba >= threshold).astype(int))
+    # the hold-out rows are a stratified 20% split with the job's seed (scikit-learn's
+    # train_test_split, the documented rule); their F1 by scikit-learn's f1_score
+    _, held = train_test_split(np.arange(len(y)), test_size=0.2, random_state=5, stratify=y)
+    expected = f1_score(y[held], model.predict(X.iloc[held]))
+    assert meta["holdout_score"] == pytest.approx(expected, abs=1e-12)
