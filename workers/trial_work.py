@@ -217,7 +217,9 @@ def build_candidate(family: Any, params: dict[str, Any], ctx: Any) -> Any:
     """
     method = params.pop("calibration", "none")
     est = family.build(params, ctx)
-    if method in ("sigmoid", "isotonic") and ctx.is_classification:
+    scores_rows = hasattr(est, "predict_proba") or hasattr(est, "decision_function")
+    # a label-only model (hard vote) has nothing to calibrate: it is scored as it is
+    if method in ("sigmoid", "isotonic") and ctx.is_classification and scores_rows:
         from sklearn.calibration import CalibratedClassifierCV
 
         est = CalibratedClassifierCV(est, method=method, cv=3)
@@ -270,6 +272,8 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
         [("frame", ensembling.FrameNormalizer(schema=data.schema)), ("model", model)]
     )
     threshold = _decision_threshold(request, cache, entry)
+    if threshold is not None and not hasattr(pipe, "predict_proba"):
+        threshold = None  # a label-only winner (hard vote) keeps its own labels
     if threshold is not None:
         from sklearn.model_selection import FixedThresholdClassifier
 

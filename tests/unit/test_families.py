@@ -367,3 +367,21 @@ def test_frame_normalizer_in_front_accepts_raw_rows() -> None:
     raw["x2"] = raw["x2"].astype(str)  # numbers typed as text
     # the same rows in the worker layout give the same predictions (hand-built reference)
     assert_allclose(pipe.predict_proba(raw), pipe.predict_proba(X_test), rtol=1e-12)
+
+
+def test_calibration_leaves_a_hard_vote_as_it_is() -> None:
+    """A hard vote has neither probabilities nor a decision function, so there is nothing for
+    CalibratedClassifierCV to calibrate (scikit-learn refuses it); the candidate is built and
+    scored uncalibrated instead of failing the trial."""
+    from sklearn.calibration import CalibratedClassifierCV
+
+    from workers.trial_work import build_candidate
+
+    X, y, ctx = family_data("multiclass")
+    fam = get_family("voting")
+    params = {**fam.defaults(ctx)[0], "voting.voting": "hard", "calibration": "sigmoid"}
+    hard = build_candidate(fam, dict(params), ctx)
+    assert not isinstance(hard, CalibratedClassifierCV)
+    assert hard.fit(X, y).predict(X).shape == (len(y),)
+    soft = build_candidate(fam, {**params, "voting.voting": "soft"}, ctx)
+    assert isinstance(soft, CalibratedClassifierCV)
