@@ -9,6 +9,7 @@ import sys
 import tempfile
 from collections.abc import Iterator
 from pathlib import Path
+from typing import Any
 
 import pytest
 import redis
@@ -76,3 +77,14 @@ def start_workers(
     return subprocess.Popen(
         cmd, env=full_env, stdout=out, stderr=subprocess.STDOUT, start_new_session=True
     )
+
+
+def run_to_end(job: Any, url: str, prefix: str, log: Path, processes: int = 1) -> dict[str, Any]:
+    """Run ``job`` with burst workers until it is final; assert it finished (log on failure)."""
+    workers = start_workers(url, prefix, processes, log=log)
+    try:
+        status = job.wait(timeout=600)
+    finally:
+        workers.wait(timeout=120)
+    assert status["state"] == "finished", log.read_text()[-3000:]
+    return dict(status)

@@ -12,7 +12,7 @@ import pytest
 from sklearn.datasets import load_breast_cancer
 
 from service.client import Client
-from tests.conftest import start_workers
+from tests.conftest import run_to_end
 
 pytestmark = pytest.mark.integration
 
@@ -32,12 +32,7 @@ def test_trials_graduate_from_a_row_subsample_to_all_rows(
         wall_seconds=600,
         seed=4,
     )
-    workers = start_workers(redis_url, prefix, 1, log=tmp_path / "w.log")
-    try:
-        status = job.wait(timeout=600)
-    finally:
-        workers.wait(timeout=120)
-    assert status["state"] == "finished", (tmp_path / "w.log").read_text()[-3000:]
+    run_to_end(job, redis_url, prefix, tmp_path / "w.log")
     rows = client.store.trial_rows(job.id)
     settled = [r for r in rows if r["state"] in ("complete", "pruned")]
     assert len(settled) == 14

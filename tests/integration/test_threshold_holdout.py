@@ -12,7 +12,7 @@ from sklearn.metrics import f1_score
 from sklearn.model_selection import train_test_split
 
 from service.client import Client
-from tests.conftest import start_workers
+from tests.conftest import run_to_end
 
 pytestmark = pytest.mark.integration
 
@@ -32,12 +32,7 @@ def test_f1_threshold_and_holdout_score_match_a_hand_computation(
         wall_seconds=600,
         seed=5,
     )
-    workers = start_workers(redis_url, prefix, 1, log=tmp_path / "w.log")
-    try:
-        status = job.wait(timeout=600)
-    finally:
-        workers.wait(timeout=120)
-    assert status["state"] == "finished", (tmp_path / "w.log").read_text()[-3000:]
+    run_to_end(job, redis_url, prefix, tmp_path / "w.log")
     meta = job.artifact_meta()
     threshold = meta["decision_threshold"]
     assert threshold is not None and 0.0 < threshold < 1.0, meta
