@@ -46,6 +46,10 @@ class WorkerContext:
             threads=threads,
         )
 
+    def request(self, job_id: str, **extra: object) -> dict[str, object]:
+        """A trial-process request about ``job_id``: where its store is, plus ``extra``."""
+        return {"redis_url": self.url, "prefix": self.settings.prefix, "job_id": job_id, **extra}
+
 
 _CURRENT: WorkerContext | None = None
 

@@ -95,26 +95,18 @@ def cross_validate(
     X, y = data.X, data.y
     rung = data.rung(seed) if on_fold is not None else None
     rung_score: float | None = None
-    if on_fold is not None and rung is not None:
+    if rung is not None and on_fold is not None:
         sub, held = rung
-        est = clone(template)
-        t0 = time.perf_counter()
-        est.fit(X.iloc[sub], y[sub])
-        fit_s += time.perf_counter() - t0
-        pred = metrics.predictions(est, X.iloc[held], data.task, data.classes)
+        _, pred, fit_rung, _ = _fit_predict(template, data, sub, held)
+        fit_s += fit_rung
         rung_score = metrics.score(metric, y[held], pred, data.classes)
-        del est, pred
+        del pred
         if not on_fold(-1, rung_score):
             raise Pruned(Evaluation([], oof, fit_s, float("nan"), [], False, None, rung_score))
     for fold, (train, test) in enumerate(data.folds()):
-        est = clone(template)
-        t0 = time.perf_counter()
-        est.fit(X.iloc[train], y[train])
-        t1 = time.perf_counter()
-        pred = metrics.predictions(est, X.iloc[test], data.task, data.classes)
-        t2 = time.perf_counter()
-        fit_s += t1 - t0
-        pred_ms.append((t2 - t1) * 1000.0 * 1000.0 / max(len(test), 1))
+        est, pred, fit_fold, predict_s = _fit_predict(template, data, train, test)
+        fit_s += fit_fold
+        pred_ms.append(predict_s * 1000.0 * 1000.0 / max(len(test), 1))
         oof[test] = pred
         scores.append(metrics.score(metric, y[test], pred, data.classes))
         if fit_info is not None:
@@ -128,6 +120,18 @@ def cross_validate(
     return Evaluation(
         scores, oof, fit_s, _latency(est, X, test), info, True, _size(est), rung_score
     )
+
+
+def _fit_predict(
+    template: Any, data: Dataset, train: np.ndarray, test: np.ndarray
+) -> tuple[Any, np.ndarray, float, float]:
+    """(fitted clone, predictions on ``test``, fit seconds, predict seconds)."""
+    est = clone(template)
+    t0 = time.perf_counter()
+    est.fit(data.X.iloc[train], data.y[train])
+    t1 = time.perf_counter()
+    pred = metrics.predictions(est, data.X.iloc[test], data.task, data.classes)
+    return est, pred, t1 - t0, time.perf_counter() - t1
 
 
 def _latency(est: Any, X: Any, test: np.ndarray) -> float:

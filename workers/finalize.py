@@ -71,14 +71,9 @@ class Finalizer:
             self.store.log(self.job_id, f"[{self.ctx.name}] finalize: {line}")
 
     def request(self, **extra: Any) -> dict[str, Any]:
-        return {
-            "redis_url": self.ctx.url,
-            "prefix": self.ctx.settings.prefix,
-            "job_id": self.job_id,
-            "seed": self.spec.seed,
-            "memory_mb": self.spec.memory_limit_mb,
-            **extra,
-        }
+        return self.ctx.request(
+            self.job_id, seed=self.spec.seed, memory_mb=self.spec.memory_limit_mb, **extra
+        )
 
     def run(self) -> str:
         state = self.store.state(self.job_id)

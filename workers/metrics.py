@@ -92,5 +92,9 @@ def predictions(estimator: object, X: object, task: str, classes: np.ndarray | N
         for j, c in enumerate(fitted):
             out[:, np.searchsorted(classes, c)] = proba[:, j]
         return out
-    labels = np.asarray(estimator.predict(X))  # type: ignore[attr-defined]
-    return (labels[:, None] == classes[None, :]).astype(float)
+    return one_hot(np.asarray(estimator.predict(X)), classes)  # type: ignore[attr-defined]
+
+
+def one_hot(labels: np.ndarray, classes: np.ndarray) -> np.ndarray:
+    """Predicted labels in the stored probability layout (1 for the label's class, else 0)."""
+    return (np.asarray(labels)[:, None] == classes[None, :]).astype(float)

@@ -81,6 +81,11 @@ def context_from_record(record: dict[str, Any], seed: int) -> FamilyContext:
     )
 
 
+def _busy_seconds(study: optuna.Study) -> float:
+    """Seconds the study's journal backend has spent talking to Redis (store cost figures)."""
+    return float(getattr(getattr(study._storage, "_backend", None), "busy_seconds", 0.0))
+
+
 def make_pruner() -> optuna.pruners.BasePruner:
     """Median pruning on the running fold mean, from the first step on, after 5 trials.
 
@@ -271,11 +276,7 @@ class Shard:
 
     def _prepare(self) -> None:
         """Have the trial process load the table now, so the first trial is not slower."""
-        request = {
-            "redis_url": self.ctx.url,
-            "prefix": self.ctx.settings.prefix,
-            "job_id": self.job_id,
-        }
+        request = self.ctx.request(self.job_id)
         try:
             self.ctx.trials.request("prepare", request, timeout=max(self.spec.trial_timeout, 60))
         except (ChildFailure, TrialCrashed) as exc:
@@ -291,8 +292,7 @@ class Shard:
         return [f for f in self.spec.family_names if self.fctx.task in get_family(f).tasks]
 
     def run_trial(self, study: optuna.Study) -> None:
-        backend = getattr(study._storage, "_backend", None)
-        busy0 = getattr(backend, "busy_seconds", 0.0)
+        busy0 = _busy_seconds(study)
         a0 = time.perf_counter()
         trial = study.ask()
         t0 = time.time()
@@ -323,16 +323,14 @@ class Shard:
         self.ctx.doing.update(
             job=self.job_id, shard=self.shard, trial=trial.number, family=family, since=time.time()
         )
-        request = {
-            "redis_url": self.ctx.url,
-            "prefix": self.ctx.settings.prefix,
-            "job_id": self.job_id,
-            "family": family,
-            "params": params,
-            "seed": self.spec.seed,
-            "trial": trial.number,
-            "memory_mb": self.spec.memory_limit_mb,
-        }
+        request = self.ctx.request(
+            self.job_id,
+            family=family,
+            params=params,
+            seed=self.spec.seed,
+            trial=trial.number,
+            memory_mb=self.spec.memory_limit_mb,
+        )
         scores: list[float] = []
         first_step = [0]  # 1 when the table is large enough for a row-halving rung
 
@@ -364,17 +362,14 @@ class Shard:
             detail = str(exc)
             if isinstance(exc, ChildFailure) and exc.trace:
                 self.log(f"trial {trial.number} traceback:\n{exc.trace}")
-            by_deadline = timeout < self.spec.trial_timeout
-            if isinstance(exc, TrialCrashed) and exc.reason == "timeout":
-                detail = (
-                    f"stopped at the job's deadline after {timeout:.0f} s"
-                    if by_deadline
-                    else f"timeout: ran past trial_timeout={self.spec.trial_timeout:g} s"
-                )
-            if isinstance(exc, TrialCrashed) and exc.reason == "timeout" and by_deadline:
+            timed_out = isinstance(exc, TrialCrashed) and exc.reason == "timeout"
+            if timed_out and timeout < self.spec.trial_timeout:  # cut by the job's deadline
+                detail = f"stopped at the job's deadline after {timeout:.0f} s"
                 self.fail(study, trial, row, detail, retry=False, count=False)
-            else:
-                self.fail(study, trial, row, detail, retry=True)
+                return
+            if timed_out:
+                detail = f"timeout: ran past trial_timeout={self.spec.trial_timeout:g} s"
+            self.fail(study, trial, row, detail, retry=True)
             return
         row.update(
             members=result.get("members", ""),
@@ -395,26 +390,16 @@ class Shard:
                 if len(result["fold_scores"]) > 1
                 else 0.0,
             )
-            t_tell = time.perf_counter()
-            if not self._tell(study, trial, values=score):
+            if not self._tell(study, trial, row, busy0, values=score):
                 return
-            row.update(
-                tell_seconds=time.perf_counter() - t_tell,
-                journal_seconds=getattr(backend, "busy_seconds", 0.0) - busy0,
-            )
             self.store.record_trial(
                 self.job_id, row, oof=oof_bytes(result["oof"]), library_size=self.spec.library_size
             )
             self.log(f"trial {trial.number} {family} complete score={score:.5f}")
         else:
             row.update(state="pruned")
-            t_tell = time.perf_counter()
-            if not self._tell(study, trial, state=TrialState.PRUNED):
+            if not self._tell(study, trial, row, busy0, state=TrialState.PRUNED):
                 return
-            row.update(
-                tell_seconds=time.perf_counter() - t_tell,
-                journal_seconds=getattr(backend, "busy_seconds", 0.0) - busy0,
-            )
             self.store.record_trial(self.job_id, row)
             where = (
                 f"after {len(scores)} folds"
@@ -423,13 +408,29 @@ class Shard:
             )
             self.log(f"trial {trial.number} {family} pruned {where}")
 
-    def _tell(self, study: optuna.Study, trial: optuna.Trial, **kwargs: Any) -> bool:
+    def _tell(
+        self,
+        study: optuna.Study,
+        trial: optuna.Trial,
+        row: dict[str, Any] | None = None,
+        busy0: float = 0.0,
+        **kwargs: Any,
+    ) -> bool:
+        """Close the trial in the study; with ``row``, record the tell's and the journal's time
+        (journal time counted from ``busy0``, the backend's busy seconds when the trial began).
+        """
+        t0 = time.perf_counter()
         try:
             study.tell(trial, **kwargs)
-            return True
         except (optuna.exceptions.UpdateFinishedTrialError, ValueError, RuntimeError) as exc:
             self.log(f"trial {trial.number} was already closed elsewhere ({exc}); result dropped")
             return False
+        if row is not None:
+            row.update(
+                tell_seconds=time.perf_counter() - t0,
+                journal_seconds=_busy_seconds(study) - busy0,
+            )
+        return True
 
     def fail(
         self,

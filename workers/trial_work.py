@@ -196,8 +196,7 @@ def _decision_threshold(request: dict[str, Any], cache: DataCache, entry: _Entry
     best_t, best = 0.5, -np.inf
     for t in np.unique(np.quantile(proba, np.linspace(0.01, 0.99, 99))):
         labels = np.where(proba >= t, data.classes[1], data.classes[0])
-        onehot = (labels[:, None] == data.classes[None, :]).astype(float)
-        value = metrics.score(metric, y, onehot, data.classes)
+        value = metrics.score(metric, y, metrics.one_hot(labels, data.classes), data.classes)
         if value > best:
             best_t, best = float(t), value
     return best_t
@@ -289,11 +288,12 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     holdout = None
     hold = data.holdout_rows
     if len(hold):
-        pred = metrics.predictions(pipe, data.X.iloc[hold], data.task, data.classes)
+        X_hold = data.X.iloc[hold]
         if threshold is not None and data.classes is not None:
             # score the labels the exported pipeline predicts (the tuned threshold), not argmax
-            labels = np.asarray(pipe.predict(data.X.iloc[hold]))
-            pred = (labels[:, None] == data.classes[None, :]).astype(float)
+            pred = metrics.one_hot(pipe.predict(X_hold), data.classes)
+        else:
+            pred = metrics.predictions(pipe, X_hold, data.task, data.classes)
         holdout = metrics.natural_score(Metric(spec.metric), data.y[hold], pred, data.classes)
     blob = sio.dumps(pipe, compression=zipfile.ZIP_DEFLATED)
     return {
