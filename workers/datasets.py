@@ -22,7 +22,7 @@ from sklearn.model_selection import (
     train_test_split,
 )
 
-from service.spec import SearchSpec, Task
+from service.spec import Metric, SearchSpec, Task
 from workers.families._base import FamilyContext
 
 PRE_BLOCK = -1
@@ -30,6 +30,8 @@ HOLDOUT = -2
 EXPANDING = "expanding"
 KFOLD = "kfold"
 ROW_CAP = 5000
+#: Metrics that rank predicted probabilities, where label-only candidates cannot compete.
+PROBABILITY_METRICS = frozenset({Metric.LOG_LOSS.value, Metric.ROC_AUC.value})
 #: Successive halving over rows (tables of at least ``SearchSpec.halving_rows`` search rows):
 #: the rung fits on this share of fold 0's training rows, and on at least
 #: ``HALVING_MIN_RUNG`` rows (or half of them, whichever is fewer).
@@ -52,6 +54,7 @@ class Dataset:
     categorical: tuple[str, ...]
     high_cardinality: tuple[str, ...]
     halving_rows: int | None = None
+    metric: str | None = None
 
     @property
     def n_folds(self) -> int:
@@ -106,6 +109,7 @@ class Dataset:
             schema=self.schema,
             high_cardinality=self.high_cardinality,
             n_classes=0 if self.classes is None else len(self.classes),
+            metric=self.metric,
         )
 
 
@@ -129,6 +133,7 @@ def family_context(
     schema: dict[str, str],
     high_cardinality: tuple[str, ...],
     n_classes: int,
+    metric: str | None = None,
 ) -> FamilyContext:
     """The context families suggest and build in; the worker (from the job record) and the
     trial process (from the decoded table) both build it here, so they agree."""
@@ -143,6 +148,7 @@ def family_context(
         high_cardinality_columns=high_cardinality,
         n_classes=n_classes,
         row_cap=ROW_CAP,
+        scores_probabilities=metric in PROBABILITY_METRICS,
     )
 
 
@@ -279,4 +285,5 @@ def build_dataset(frame: pd.DataFrame, record: dict[str, Any], spec: SearchSpec)
         categorical=categorical,
         high_cardinality=high,
         halving_rows=spec.halving_rows,
+        metric=None if spec.metric is None else str(spec.metric),
     )

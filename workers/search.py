@@ -78,6 +78,7 @@ def context_from_record(record: dict[str, Any], seed: int) -> FamilyContext:
         schema=record["schema"],
         high_cardinality=tuple(cols.get("high_cardinality", ())),
         n_classes=len(record.get("classes") or []),
+        metric=None if spec.metric is None else str(spec.metric),
     )
 
 

@@ -385,3 +385,53 @@ def test_calibration_leaves_a_hard_vote_as_it_is() -> None:
     assert hard.fit(X, y).predict(X).shape == (len(y),)
     soft = build_candidate(fam, {**params, "voting.voting": "soft"}, ctx)
     assert isinstance(soft, CalibratedClassifierCV)
+
+
+def test_hard_votes_only_where_labels_can_compete() -> None:
+    """Log loss and ROC AUC rank probabilities; a hard vote's one-hot output puts zero on
+    every class but one, so under those metrics it can only lose (common practice: a log loss
+    of a wrong hard label is infinite). It is offered for label metrics only."""
+    import dataclasses
+
+    import optuna
+
+    from workers.datasets import PROBABILITY_METRICS
+
+    assert {"log_loss", "roc_auc"} == PROBABILITY_METRICS
+    _, _, ctx = family_data("multiclass")
+    fam = get_family("voting")
+
+    def votes(c: Any) -> set[str]:
+        study = optuna.create_study(sampler=optuna.samplers.RandomSampler(seed=0))
+        return {fam.suggest(study.ask(), c)["voting.voting"] for _ in range(40)}
+
+    assert votes(dataclasses.replace(ctx, scores_probabilities=True)) == {"soft"}
+    assert votes(dataclasses.replace(ctx, scores_probabilities=False)) == {"soft", "hard"}
+
+
+@pytest.mark.parametrize("metric", ["roc_auc", "accuracy"])
+def test_worker_and_trial_process_build_the_same_context(metric: str) -> None:
+    """The worker suggests from the job record, the trial process builds from the decoded
+    table; both must see the same context, or a suggested candidate would differ from the
+    one scored."""
+    from sklearn.datasets import load_breast_cancer
+
+    from service.spec import SearchSpec, Task
+    from workers.datasets import build_dataset
+    from workers.search import context_from_record
+
+    frame = load_breast_cancer(as_frame=True).frame  # scikit-learn bundled (UCI WDBC)
+    frame.columns = [c.replace(" ", "_") for c in frame.columns]
+    spec = SearchSpec(target="target", metric=metric).resolved(Task.BINARY)  # type: ignore[arg-type]
+    schema = dict.fromkeys([c for c in frame.columns if c != "target"], "numeric")
+    record = {
+        "task": "binary",
+        "schema": schema,
+        "summary": {"rows": len(frame)},
+        "classes": [0, 1],
+        "spec": spec.model_dump(mode="json"),
+    }
+    worker = context_from_record(record, seed=3)
+    trial_process = build_dataset(frame, record, spec).context(3)
+    assert worker == trial_process
+    assert worker.scores_probabilities is (metric == "roc_auc")

@@ -32,6 +32,9 @@ class FamilyContext:
         high_cardinality_columns: categorical columns with many levels (target-encoded).
         n_classes: number of classes (0 for regression).
         row_cap: training rows above which learners with super-linear cost subsample.
+        scores_probabilities: the job's metric ranks predicted probabilities (log loss, ROC
+            AUC): label-only candidates (a hard vote's one-hot output) cannot compete there,
+            so families do not offer them.
     """
 
     task: str
@@ -42,6 +45,7 @@ class FamilyContext:
     high_cardinality_columns: tuple[str, ...] = ()
     n_classes: int = 0
     row_cap: int = 5000
+    scores_probabilities: bool = False
     extra: dict[str, Any] = field(default_factory=dict)
 
     @property

@@ -28,7 +28,8 @@ class VotingFamily(BaseFamily):
     its space under ``voting.<learner>.`` and a weight ``voting.weight.<learner>`` in
     [0.1, 1]. Classification draws ``voting.voting`` (``soft`` averages probabilities,
     ``hard`` counts weighted labels); soft voting only offers learners with
-    ``predict_proba``. Each member keeps its own preprocessing.
+    ``predict_proba``. Hard votes are not offered when the metric ranks probabilities (their
+    one-hot output cannot compete there). Each member keeps its own preprocessing.
     """
 
     name = "voting"
@@ -41,7 +42,8 @@ class VotingFamily(BaseFamily):
         params: Params = {}
         if ctx.is_classification:
             key = self.key("voting")
-            params[key] = trial.suggest_categorical(key, ("soft", "hard"))
+            votes = ("soft",) if ctx.scores_probabilities else ("soft", "hard")
+            params[key] = trial.suggest_categorical(key, votes)
         candidates = self._candidates(params, ctx)
         params.update(suggest_members(trial, ctx, self.name, candidates))
         for n in chosen_members(params, self.name, candidates):
