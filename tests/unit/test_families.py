@@ -435,3 +435,40 @@ def test_worker_and_trial_process_build_the_same_context(metric: str) -> None:
     trial_process = build_dataset(frame, record, spec).context(3)
     assert worker == trial_process
     assert worker.scores_probabilities is (metric == "roc_auc")
+
+
+@pytest.mark.parametrize("task", ["binary", "multiclass", "regression"])
+def test_default_trials_run_cheapest_first(task: str) -> None:
+    """Every family's defaults are enqueued exactly once, ordered by estimated cost: the
+    single learners before the composites, and the stack (inner CV: cv + 1 fits of each
+    member) last."""
+    from workers.search import default_trials
+
+    _, _, ctx = family_data(task)
+    order = default_trials(KNOWN_FAMILIES, ctx)
+    expected = [
+        (name, p)
+        for name in KNOWN_FAMILIES
+        if ctx.task in FAMILIES[name].tasks
+        for p in FAMILIES[name].defaults(ctx)
+    ]
+    assert sorted(map(repr, order)) == sorted(map(repr, expected))
+    costs = [FAMILIES[name].cost(p, ctx) for name, p in order]
+    assert costs == sorted(costs)
+    assert order[0][0] == "single"
+    assert order[-1][0] == "stacking"
+    # the default stack and the default vote have the same three members
+    stack = FAMILIES["stacking"].defaults(ctx)[0]
+    vote = FAMILIES["voting"].defaults(ctx)[0]
+    assert FAMILIES["stacking"].cost(stack, ctx) == pytest.approx(
+        (stack["stacking.cv"] + 1) * FAMILIES["voting"].cost(vote, ctx)
+    )
+    # every candidate a family can draw has a positive cost
+    import optuna
+
+    for name in KNOWN_FAMILIES:
+        if ctx.task not in FAMILIES[name].tasks:
+            continue
+        study = optuna.create_study(sampler=optuna.samplers.RandomSampler(seed=1))
+        for _ in range(10):
+            assert FAMILIES[name].cost(FAMILIES[name].suggest(study.ask(), ctx), ctx) > 0

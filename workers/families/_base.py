@@ -67,6 +67,9 @@ class BaseFamily:
       :class:`FamilyContext`, i.e. it carries its own preprocessing.
     - ``defaults(ctx)`` returns parameter dicts (same keys ``suggest`` would draw) of sound
       default configurations, tried before the sampler takes over.
+    - ``cost(params, ctx)`` (optional) estimates one fit of a candidate relative to a default
+      LightGBM; the defaults of all families run cheapest first, so that a short job still
+      sees several families and the trial library has diverse members early.
     """
 
     name: ClassVar[str] = ""
@@ -80,6 +83,9 @@ class BaseFamily:
 
     def defaults(self, ctx: FamilyContext) -> list[dict[str, Any]]:
         raise NotImplementedError
+
+    def cost(self, params: dict[str, Any], ctx: FamilyContext) -> float:
+        return 1.0
 
     def key(self, param: str) -> str:
         """Prefixed Optuna parameter name for this family."""

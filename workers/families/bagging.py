@@ -8,7 +8,7 @@ from sklearn.ensemble import BaggingClassifier, BaggingRegressor
 from sklearn.pipeline import Pipeline
 
 from workers.families._base import BaseFamily, FamilyContext
-from workers.families._learners import LEARNERS, Params, learner_names
+from workers.families._learners import LEARNERS, Params, learner_names, learners_cost
 
 if TYPE_CHECKING:
     import optuna
@@ -78,6 +78,15 @@ class BaggingFamily(BaseFamily):
             random_state=ctx.random_state,
         )
         return Pipeline([("prep", learner.preprocessor(ctx)), ("model", ensemble)])
+
+    def cost(self, params: Params, ctx: FamilyContext) -> float:
+        """A forest as its learner; a bagged learner by member count and row share (the table
+        is preprocessed once, so a member costs about a third of the full pipeline)."""
+        kind = params[self.key("kind")]
+        if kind in FORESTS:
+            return learners_cost([kind])
+        share = params[self.key("n_estimators")] * params[self.key("max_samples")]
+        return 0.35 * share * learners_cost([params[self.key("base")]])
 
     def defaults(self, ctx: FamilyContext) -> list[Params]:
         """A 200-tree random forest and 50 bagged decision trees."""

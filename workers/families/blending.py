@@ -13,6 +13,7 @@ from workers.families._learners import (
     default_members,
     default_meta,
     learner_names,
+    learners_cost,
     make_meta,
     suggest_members,
     suggest_meta,
@@ -51,6 +52,10 @@ class BlendingFamily(BaseFamily):
             holdout_fraction=float(params[self.key("holdout_fraction")]),
             random_state=ctx.random_state,
         )
+
+    def cost(self, params: Params, ctx: FamilyContext) -> float:
+        """Members fitted twice: on the training share, then on all rows."""
+        return 2 * learners_cost(chosen_members(params, self.name, learner_names(ctx)))
 
     def defaults(self, ctx: FamilyContext) -> list[Params]:
         """LightGBM, linear model and random forest, 20% hold-out, linear meta-model."""

@@ -126,6 +126,14 @@ class BoostingFamily(BaseFamily):
         prep = make_preprocessor(ctx, scale=False, encoding="ordinal")
         return Pipeline([("prep", prep), ("model", model)])
 
+    def cost(self, params: Params, ctx: FamilyContext) -> float:
+        """Early-stopped LightGBM about a plain one, histogram boosting 2.5×, AdaBoost
+        by rounds."""
+        kind = params[self.key("kind")]
+        if kind == "adaboost":
+            return 0.02 * params[self.key("adaboost.n_estimators")]
+        return 1.2 if kind == "lgbm" else 2.5
+
     def defaults(self, ctx: FamilyContext) -> list[Params]:
         """LightGBM and HistGradientBoosting with (close to) their library defaults."""
         out = []

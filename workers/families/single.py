@@ -5,7 +5,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING, Any
 
 from workers.families._base import BaseFamily, FamilyContext
-from workers.families._learners import LEARNERS, Params, learner_names
+from workers.families._learners import LEARNERS, Params, learner_names, learners_cost
 
 if TYPE_CHECKING:
     import optuna
@@ -35,6 +35,9 @@ class SingleFamily(BaseFamily):
                 f"choose one of {', '.join(learner_names(ctx))}."
             )
         return LEARNERS[learner].build(params, ctx, self.key(learner))
+
+    def cost(self, params: Params, ctx: FamilyContext) -> float:
+        return learners_cost([params[self.key("learner")]])
 
     def defaults(self, ctx: FamilyContext) -> list[Params]:
         """LightGBM and the linear model, each with its library defaults."""

@@ -16,6 +16,7 @@ from workers.families._learners import (
     default_members,
     default_meta,
     learner_names,
+    learners_cost,
     make_meta,
     make_preprocessor,
     suggest_members,
@@ -87,6 +88,11 @@ class StackingFamily(BaseFamily):
                 ]
             )
         return Pipeline([("prep", prep), ("model", stack)])
+
+    def cost(self, params: Params, ctx: FamilyContext) -> float:
+        """Members fitted cv + 1 times (inner folds, then all rows)."""
+        members = chosen_members(params, self.name, learner_names(ctx))
+        return (int(params[self.key("cv")]) + 1) * learners_cost(members)
 
     def defaults(self, ctx: FamilyContext) -> list[Params]:
         """LightGBM, linear model and random forest under a linear meta-model, 5 folds."""

@@ -13,6 +13,7 @@ from workers.families._learners import (
     chosen_members,
     default_members,
     learner_names,
+    learners_cost,
     suggest_members,
 )
 
@@ -60,6 +61,9 @@ class VotingFamily(BaseFamily):
                 estimators, voting=params[self.key("voting")], weights=weights, n_jobs=1
             )
         return VotingRegressor(estimators, weights=weights, n_jobs=1)
+
+    def cost(self, params: Params, ctx: FamilyContext) -> float:
+        return learners_cost(chosen_members(params, self.name, self._candidates(params, ctx)))
 
     def defaults(self, ctx: FamilyContext) -> list[Params]:
         """Equal-weight (soft) vote of LightGBM, the linear model and a random forest."""
