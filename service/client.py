@@ -299,7 +299,10 @@ class Job:
     def leaderboard(self) -> pd.DataFrame:
         """Complete candidates best first: trials and library ensembles, natural metric sign.
 
-        ``DataFrame.attrs`` carries the metric and whether greater or smaller is better.
+        ``DataFrame.attrs`` carries the metric and whether greater or smaller is better. Once
+        the job is final, ``exported`` marks the candidate behind the stored pipeline: finalize
+        ranks trials by their CV score minus the optimism of picking the best of them (BBC-CV)
+        against the library ensembles' nested scores, so it may sit below rank 1.
         """
         rec = self.record()
         spec = SearchSpec.model_validate(rec["spec"])
@@ -361,6 +364,11 @@ class Job:
             board.insert(0, "rank", range(1, len(board) + 1))
             board = board[cols].reset_index(drop=True)
             board = _with_explanations(board, extras.get("explain") or {})
+            # the exported pipeline: trials compete with library ensembles after their
+            # selection optimism is taken off, so it need not be rank 1
+            best = (extras.get("best") or {}).get("id")
+            if best is not None:
+                board["exported"] = board["candidate"] == best
         board.attrs.update(
             metric=metric.value,
             greater_is_better=sign > 0,

@@ -120,6 +120,9 @@ class Finalizer:
         extras = {
             "library": library,
             "best": {k: chosen[k] for k in ("id", "kind", "family", "score")},
+            "trial_optimism": max(
+                (float(e.get("trial_optimism", 0.0)) for e in library), default=0.0
+            ),
             "holdout_score": meta.get("holdout_score"),
             "finalize_seconds": time.time() - t0,
             "library_seconds": library_seconds,
@@ -266,14 +269,23 @@ class Finalizer:
     def candidates(
         self, board: list[dict[str, Any]], library: list[dict[str, Any]]
     ) -> list[dict[str, Any]]:
-        """Complete trials and library ensembles, best first (greater is better)."""
+        """Complete trials and library ensembles, best first (greater is better).
+
+        Like is compared with like: a library ensemble's score is nested (its weights never saw
+        the rows they are scored on), while the best of many trials' CV scores is inflated by
+        the picking itself. Trials are therefore ranked by their score minus the BBC-CV
+        optimism of picking the best trial (``trial_optimism``, from the library step); the
+        reported ``score`` stays the plain CV score.
+        """
         by_number = {int(r["number"]): r for r in board}
+        optimism = max((float(e.get("trial_optimism", 0.0)) for e in library), default=0.0)
         out = [
             {
                 "id": f"t{r['number']}",
                 "kind": "trial",
                 "family": r["family"],
                 "score": float(r["score"]),
+                "rank_score": float(r["score"]) - optimism,
                 "members": [self.member(r)],
                 "weights": None,
             }
@@ -289,12 +301,13 @@ class Finalizer:
                     "kind": "library",
                     "family": f"library:{ens['method']}",
                     "score": float(ens["score"]),
+                    "rank_score": float(ens["score"]),
                     "members": [self.member(r) for r in members],
                     "weights": ens.get("weights"),
                     "combiner": ens.get("combiner"),
                 }
             )
-        return sorted(out, key=lambda c: (-c["score"], c["kind"] != "trial", c["id"]))
+        return sorted(out, key=lambda c: (-c["rank_score"], c["kind"] != "trial", c["id"]))
 
     @staticmethod
     def member(row: dict[str, Any]) -> dict[str, Any]:

@@ -345,6 +345,48 @@ def bbc_cv(
     }
 
 
+#: Rows and bootstrap samples of :func:`selection_optimism` (it runs in every finalize).
+OPTIMISM_MAX_ROWS = 20_000
+OPTIMISM_BOOT = 200
+
+
+def selection_optimism(
+    preds: Sequence[np.ndarray],
+    y: np.ndarray,
+    metric: Metric | str,
+    *,
+    classes: np.ndarray | None = None,
+    seed: int = 0,
+) -> float:
+    """How far the best CV score among ``preds`` overstates what picking the best delivers.
+
+    The BBC-CV optimism (``winner_cv - estimate`` of :func:`bbc_cv`, floored at 0) on at most
+    ``OPTIMISM_MAX_ROWS`` rows drawn with ``seed``: finalize subtracts it from the trials' CV
+    scores before they compete with library ensembles, whose scores are nested and therefore
+    carry no such optimism. Greater-is-better units; 0 for fewer than two candidates.
+    """
+    if len(preds) < 2:
+        return 0.0
+    y = np.asarray(y)
+    keep = np.arange(len(y))
+    if len(y) > OPTIMISM_MAX_ROWS:
+        keep = np.sort(
+            np.random.default_rng(seed).choice(len(y), OPTIMISM_MAX_ROWS, replace=False)
+        )
+    try:
+        out = bbc_cv(
+            [np.asarray(p)[keep] for p in preds],
+            y[keep],
+            metric,
+            classes=classes,
+            n_boot=OPTIMISM_BOOT,
+            seed=seed,
+        )
+    except ValueError:
+        return 0.0
+    return max(float(out["optimism"]), 0.0)
+
+
 def corrected_resampled_ttest(
     scores_a: Sequence[float], scores_b: Sequence[float], *, n_train: int, n_test: int
 ) -> dict[str, float]:

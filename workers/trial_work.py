@@ -310,6 +310,7 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
 
 def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
     """Library ensembles over the kept out-of-fold predictions (no fold fits), scored honestly."""
+    from workers.honesty import selection_optimism
     from workers.library import build_library_ensembles
 
     entry = cache.get(request)
@@ -353,6 +354,16 @@ def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
                 "combiner": combiner,
             }
         )
+    # what the best trial's CV score overstates (finalize compares like with like)
+    optimism = selection_optimism(
+        [members[t] for t in sorted(members)],
+        data.y[rows],
+        Metric(entry.spec.metric),
+        classes=data.classes,
+        seed=int(data.fold_ids.size),
+    )
+    for doc in out:
+        doc["trial_optimism"] = optimism
     return out
 
 

@@ -53,6 +53,10 @@ def test_every_family_runs_and_the_winner_matches_the_published_accuracy(
     # the honest estimate is not above the plain best CV score (winner's curse removed)
     assert honest["bbc_estimate"] <= honest["winner_cv"] + 1e-9
     assert any(p["on_front"] for p in extras["pareto"])
+    # the exported pipeline is marked on the board; trials competed with the library
+    # ensembles after the optimism of picking the best trial (BBC-CV) was taken off
+    assert board["exported"].sum() == 1
+    assert 0 <= extras["trial_optimism"] <= honest["winner_cv"] - honest["bbc_low"]
 
     report = job.report(tmp_path / "report.html")
     html = report.read_text()

@@ -253,3 +253,29 @@ def test_bbc_cv_speed_smoke() -> None:
     assert time.perf_counter() - start < 30.0
     assert out["n_candidates"] == m
     assert m > honesty._AUC_CHUNK  # the chunked path was exercised
+
+
+# --- selection optimism (finalize compares trials with nested library scores) ---------------
+
+
+def test_selection_optimism_of_noise_candidates_matches_their_excess_over_chance() -> None:
+    # Tsamardinos et al. (2018): picking the best of many pure-noise candidates inflates its CV
+    # AUC above 0.5 (the true AUC of each); the optimism is that excess. Above the row cap the
+    # rows are subsampled, and the figure stays of the same size.
+    rng = np.random.default_rng(3)
+    for n in (400, honesty.OPTIMISM_MAX_ROWS + 4000):
+        y = np.array([0, 1] * (n // 2))
+        preds = [_noise_proba(rng, n) for _ in range(100)]
+        best_cv = max(metrics.score("roc_auc", y, p, np.array([0, 1])) for p in preds)
+        opt = honesty.selection_optimism(preds, y, "roc_auc", seed=0)
+        assert 0.5 * (best_cv - 0.5) < opt < 1.5 * (best_cv - 0.5) + 0.01
+
+
+def test_selection_optimism_is_zero_without_a_choice() -> None:
+    rng = np.random.default_rng(4)
+    y = np.array([0, 1] * 100)
+    strong = np.column_stack([1 - y * 0.8 - 0.1, y * 0.8 + 0.1])
+    assert honesty.selection_optimism([strong], y, "roc_auc") == 0.0
+    # identical candidates: picking among them gains nothing
+    assert honesty.selection_optimism([strong, strong.copy()], y, "log_loss") < 1e-3
+    assert honesty.selection_optimism([_noise_proba(rng, 200)] * 2, y, "roc_auc") >= 0.0
