@@ -18,6 +18,7 @@ for _var in (
 ):
     os.environ[_var] = "1"
 
+import atexit
 import contextlib
 import math
 import secrets
@@ -52,6 +53,26 @@ def private_redis() -> Iterator[RedisServer]:
 
 def new_prefix() -> str:
     return f"bench{secrets.token_hex(3)}"
+
+
+#: Worker launchers still running; stopped when the benchmark exits or is terminated, so a
+#: killed benchmark leaves no worker processes behind.
+_LIVE: list[Workers] = []
+
+
+def _stop_live() -> None:
+    for w in list(_LIVE):
+        with contextlib.suppress(Exception):
+            w.stop(grace=5.0)
+
+
+def _on_term(signum: int, _frame: object) -> None:
+    raise SystemExit(128 + signum)  # unwinds context managers, then atexit stops the rest
+
+
+atexit.register(_stop_live)
+with contextlib.suppress(ValueError):  # not the main thread: leave signals alone
+    signal.signal(signal.SIGTERM, _on_term)
 
 
 class Workers:
@@ -100,6 +121,7 @@ class Workers:
         )
         if log:
             out.close()
+        _LIVE.append(self)
 
     def wait(self, timeout: float) -> int | None:
         try:
@@ -109,6 +131,8 @@ class Workers:
 
     def stop(self, grace: float = 30.0) -> None:
         """SIGTERM the launcher (it forwards to its workers); SIGKILL the group if it hangs."""
+        if self in _LIVE:
+            _LIVE.remove(self)
         if self.proc.poll() is not None:
             return
         with contextlib.suppress(ProcessLookupError):

@@ -352,13 +352,22 @@ def tutti_model(
         info = {
             "trials": st["trials_done"],
             "failed": st["failed"],
-            "best": str(board.iloc[0]["family"]) if len(board) else "?",
+            "best": _exported_family(board),
             "elapsed": float(st["elapsed"] or 0.0),
             "stop": st.get("stop_reason") or "?",
         }
         return model, info
     finally:
         job.delete()
+
+
+def _exported_family(board: Any) -> str:
+    """Family of the candidate behind the stored pipeline (not always rank 1 of the board)."""
+    if not len(board):
+        return "?"
+    if "exported" in board.columns and board["exported"].any():
+        return str(board.loc[board["exported"], "family"].iloc[0])
+    return str(board.iloc[0]["family"])
 
 
 # ---------------------------------------------------------------------------- driver

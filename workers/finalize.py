@@ -92,6 +92,7 @@ class Finalizer:
         library = self.library_ensembles(board)
         library_seconds = time.time() - t_lib
         candidates = self.candidates(board, library)
+        candidates, over_time = self.affordable(candidates, board)
         artifacts: dict[str, tuple[bytes, dict[str, Any]]] = {}
         chosen: dict[str, Any] | None = None
         errors: list[str] = []
@@ -127,6 +128,7 @@ class Finalizer:
             "finalize_seconds": time.time() - t0,
             "library_seconds": library_seconds,
             "refit_errors": errors,
+            "passed_over_for_time": over_time,
             "pareto": pareto,
             "explain": explained,
         }
@@ -135,6 +137,31 @@ class Finalizer:
         )
         self.log(f"{'committed' if ok else 'duplicate, nothing changed'}: best {chosen['id']}")
         return "committed" if ok else "duplicate"
+
+    def affordable(
+        self, candidates: list[dict[str, Any]], board: list[dict[str, Any]]
+    ) -> tuple[list[dict[str, Any]], list[str]]:
+        """Candidates whose refit fits in the time left, and the ids of library ensembles
+        passed over because theirs would not.
+
+        A library ensemble refits every member on all rows, one after the other; its cost is
+        estimated from the members' fold-fit seconds (one refit ≈ the sum over folds ÷
+        (folds − 1)). A trial refits one pipeline and is always allowed, so the job ends near
+        its wall budget with the best candidate it can still afford.
+        """
+        fit = {f"t{r['number']}": float(r.get("fit_seconds") or 0.0) for r in board}
+        folds = max(self.spec.folds - 1, 1)
+        left = self.time_left()
+        keep, passed = [], []
+        for cand in candidates:
+            need = sum(fit.get(f"t{m['number']}", 0.0) for m in cand["members"]) / folds
+            if cand["kind"] == "library" and need > left:
+                passed.append(cand["id"])
+                continue
+            keep.append(cand)
+        if passed:
+            self.log(f"passed over for time ({left:.0f} s left): {', '.join(passed)}")
+        return keep, passed
 
     def time_left(self) -> float:
         """Seconds until the job's hard deadline (generous when the job has none)."""

@@ -46,3 +46,31 @@ def test_without_library_the_plain_cv_order_holds() -> None:
     assert _order(board, []) == ["t1", "t2", "t3"]
     cands = Finalizer.candidates(Finalizer.__new__(Finalizer), board, [])
     assert [c["score"] for c in cands] == [0.95, 0.95, 0.90]  # the reported score is unchanged
+
+
+def test_a_library_ensemble_whose_refit_would_overrun_the_budget_is_passed_over() -> None:
+    """10 s are left of the wall budget; 5 folds, so one all-rows refit ≈ fold-fit seconds / 4.
+    The selection ensemble's members need (8 + 8) / 4 = 4 s: kept. The meta ensemble's need
+    (8 + 8 + 48) / 4 = 16 s: passed over. A trial is one refit and always allowed (t2 too,
+    though 48 / 4 = 12 s: some pipeline must be exported)."""
+    import time
+
+    from service.spec import SearchSpec
+
+    fin = Finalizer.__new__(Finalizer)
+    fin.spec = SearchSpec(target="y", folds=5, wall_seconds=60)
+    fin.record = {"started_at": time.time() - 50}
+    fin.job_id = "j"
+    fin.log = lambda line: None  # type: ignore[method-assign]
+    board = [
+        {**_trial(0, 0.90), "fit_seconds": 8.0},
+        {**_trial(1, 0.89), "fit_seconds": 8.0},
+        {**_trial(2, 0.88), "fit_seconds": 48.0},
+    ]
+    library = [
+        _library("meta", 0.95, [0, 1, 2], 0.0),
+        _library("selection", 0.94, [0, 1], 0.0),
+    ]
+    kept, passed = fin.affordable(fin.candidates(board, library), board)
+    assert passed == ["library-meta"]
+    assert [c["id"] for c in kept] == ["library-selection", "t0", "t1", "t2"]
