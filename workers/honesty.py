@@ -187,6 +187,27 @@ def _inbag_scores(spec: Any, counts: np.ndarray) -> np.ndarray:
     raise AssertionError(kind)
 
 
+def scores_on_rows(
+    metric: Metric | str, y: np.ndarray, preds: Sequence[np.ndarray], classes: Any = None
+) -> np.ndarray:
+    """Scores of many candidates on the same rows in one vectorised pass (greater is better).
+
+    Order-preserving for a fixed set of rows, not the metric's own value: sums instead of
+    means (accuracy, log loss, MAE), minus the sum of squared errors for RMSE and R2; ROC AUC,
+    balanced accuracy and F1 are exact. Used where candidates are ranked many times on one row
+    set (greedy ensemble selection), where calling a scikit-learn metric per candidate costs
+    about a millisecond each.
+    """
+    metric = Metric(metric)
+    y = np.asarray(y)
+    if metric in (Metric.RMSE, Metric.MAE, Metric.R2):
+        y, classes = y.astype(float), None
+    elif classes is None:
+        classes = np.unique(y)
+    spec = _mean_terms(metric, y, preds, classes)
+    return _inbag_scores(spec, np.ones((1, len(y)), dtype=np.int32))[0]
+
+
 def _resolve(
     y: np.ndarray, score_fn: ScoreFn | Metric | str, classes: np.ndarray | None
 ) -> tuple[np.ndarray, ScoreFn, Metric | None, np.ndarray | None]:

@@ -48,9 +48,12 @@ from sklearn.linear_model import LinearRegression, LogisticRegression
 
 from service.spec import Metric
 from workers import metrics
+from workers.honesty import scores_on_rows
 
 REGRESSION = "regression"
 METHODS: tuple[str, ...] = ("selection", "meta")
+#: Prediction cells (rows × columns × members) scored per vectorised pass of greedy selection.
+BATCH_CELLS = 4_000_000
 
 #: Inverse L2 strength of the classification meta-model (scikit-learn's default, C=1).
 META_C = 1.0
@@ -61,6 +64,7 @@ META_MAX_ITER = 1000
 META_TOL = 1e-6
 
 ScoreFn = Callable[[np.ndarray, np.ndarray], float]
+BatchScoreFn = Callable[[np.ndarray, list[np.ndarray]], np.ndarray]
 
 
 # --------------------------------------------------------------------------- helpers
@@ -115,7 +119,12 @@ def weighted_average(preds: Sequence[np.ndarray], weights: np.ndarray) -> np.nda
 
 
 def greedy_selection(
-    preds: Sequence[np.ndarray], y: np.ndarray, score_fn: ScoreFn, *, rounds: int = 50
+    preds: Sequence[np.ndarray],
+    y: np.ndarray,
+    score_fn: ScoreFn,
+    *,
+    rounds: int = 50,
+    batch: BatchScoreFn | None = None,
 ) -> np.ndarray:
     """Greedy forward ensemble selection with replacement (Caruana et al., ICML 2004).
 
@@ -133,6 +142,9 @@ def greedy_selection(
         y: true targets of the same rows.
         score_fn: ``f(y_true, pred) -> float``, greater is better (see ``metrics.scorer``).
         rounds: total number of picks (>= 1).
+        batch: optional ``f(y_true, [pred, ...]) -> scores`` ranking many candidates at once
+            in the same order as ``score_fn`` (``honesty.scores_on_rows``); each round then
+            scores all members in one vectorised pass instead of one metric call each.
 
     Returns:
         Non-negative weights summing to 1, one per member.
@@ -144,6 +156,8 @@ def greedy_selection(
     if y.shape[0] != stacked.shape[1]:
         raise ValueError(f"{y.shape[0]} targets for predictions of {stacked.shape[1]} rows")
     m = stacked.shape[0]
+    cells = int(np.prod(stacked.shape[1:]))
+    chunk = max(1, BATCH_CELLS // max(cells, 1))  # members mixed per vectorised pass
 
     counts = np.zeros(m, dtype=np.int64)
     running = np.zeros(stacked.shape[1:], dtype=float)
@@ -152,10 +166,18 @@ def greedy_selection(
     for step in range(rounds):
         k = step + 1
         step_best, step_j = -math.inf, -1
-        for j in range(m):
-            s = _safe_score(score_fn, y, (running + stacked[j]) / k)
-            if s > step_best:
-                step_best, step_j = s, j
+        if batch is not None:
+            for a in range(0, m, chunk):
+                vals = np.asarray(batch(y, list((running + stacked[a : a + chunk]) / k)), float)
+                vals = np.where(np.isnan(vals), -math.inf, vals)
+                j = int(np.argmax(vals))  # first of equal scores: the lowest index
+                if vals[j] > step_best:
+                    step_best, step_j = float(vals[j]), a + j
+        else:
+            for j in range(m):
+                s = _safe_score(score_fn, y, (running + stacked[j]) / k)
+                if s > step_best:
+                    step_best, step_j = s, j
         if step_j < 0:  # every candidate scored NaN / -inf: keep the lowest index
             step_j = 0
         counts = counts.copy()
@@ -319,10 +341,11 @@ def _fit_predict(
     task: str,
     rounds: int,
     classes: np.ndarray | None,
+    batch: BatchScoreFn | None = None,
 ) -> tuple[np.ndarray, np.ndarray | None, MetaModel | None]:
     """Fit ``method`` on ``train`` rows, predict the ``apply`` rows; (pred, weights, meta)."""
     if method == "selection":
-        w = greedy_selection(train, y_train, score_fn, rounds=rounds)
+        w = greedy_selection(train, y_train, score_fn, rounds=rounds, batch=batch)
         return weighted_average(apply, w), w, None
     meta = fit_meta(train, y_train, task, classes=classes)
     return meta_predict(meta, apply, task), meta.weights, meta
@@ -338,6 +361,7 @@ def honest_score(
     task: str,
     rounds: int = 50,
     classes: np.ndarray | None = None,
+    batch: BatchScoreFn | None = None,
 ) -> HonestResult:
     """Nested evaluation of a library-ensemble method; held rows never enter the fit.
 
@@ -356,6 +380,8 @@ def honest_score(
         rounds: picks of greedy selection (ignored by ``meta``).
         classes: sorted class labels of the layout (classification ``meta``; defaults to
             ``np.unique(y)``).
+        batch: vectorised ranking of many candidates for greedy selection (see
+            :func:`greedy_selection`).
     """
     if method not in METHODS:
         raise ValueError(f"unknown method {method!r}; choose from {', '.join(METHODS)}")
@@ -386,12 +412,13 @@ def honest_score(
             task,
             rounds,
             classes,
+            batch,
         )
         nested[held] = pred
         scores.append(float(score_fn(y[held], pred)))
 
     full_pred, weights, meta = _fit_predict(
-        method, members, y, members, score_fn, task, rounds, classes
+        method, members, y, members, score_fn, task, rounds, classes, batch
     )
     arr = np.asarray(scores, dtype=float)
     return HonestResult(
@@ -494,7 +521,15 @@ def build_library_ensembles(
     out: list[LibraryEnsemble] = []
     for method in METHODS:
         res = honest_score(
-            method, preds, y, folds, score_fn, task=task, rounds=rounds, classes=classes
+            method,
+            preds,
+            y,
+            folds,
+            score_fn,
+            task=task,
+            rounds=rounds,
+            classes=classes,
+            batch=lambda y_, p_: scores_on_rows(metric, y_, p_, classes),
         )
         common: dict[str, Any] = {
             "method": method,
