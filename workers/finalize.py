@@ -13,6 +13,7 @@ import hmac
 import logging
 import platform
 import time
+from collections.abc import Iterable
 from typing import Any
 
 from service.spec import LOWER_IS_BETTER, SearchSpec
@@ -54,6 +55,20 @@ def sign(blob: bytes, key: str | None) -> str | None:
     if not key:
         return None
     return hmac.new(key.encode(), blob, hashlib.sha256).hexdigest()
+
+
+def refit_seconds(rows: Iterable[dict[str, Any]], folds: int) -> float:
+    """Estimated seconds to refit these trials on all rows, one after the other.
+
+    A trial's ``fit_seconds`` sums its fold fits, each on (folds − 1)/folds of the rows, so
+    one all-rows refit is about that sum ÷ (folds − 1).
+    """
+    return sum(float(r.get("fit_seconds") or 0.0) for r in rows) / max(folds - 1, 1)
+
+
+def trial_optimism(library: list[dict[str, Any]]) -> float:
+    """BBC-CV optimism of picking the best trial, as the library step reported it (0 if none)."""
+    return max((float(e.get("trial_optimism", 0.0)) for e in library), default=0.0)
 
 
 class Finalizer:
@@ -121,9 +136,7 @@ class Finalizer:
         extras = {
             "library": library,
             "best": {k: chosen[k] for k in ("id", "kind", "family", "score")},
-            "trial_optimism": max(
-                (float(e.get("trial_optimism", 0.0)) for e in library), default=0.0
-            ),
+            "trial_optimism": trial_optimism(library),
             "holdout_score": meta.get("holdout_score"),
             "finalize_seconds": time.time() - t0,
             "library_seconds": library_seconds,
@@ -149,12 +162,12 @@ class Finalizer:
         (folds − 1)). A trial refits one pipeline and is always allowed, so the job ends near
         its wall budget with the best candidate it can still afford.
         """
-        fit = {f"t{r['number']}": float(r.get("fit_seconds") or 0.0) for r in board}
-        folds = max(self.spec.folds - 1, 1)
+        rows = {int(r["number"]): r for r in board}
         left = self.time_left()
         keep, passed = [], []
         for cand in candidates:
-            need = sum(fit.get(f"t{m['number']}", 0.0) for m in cand["members"]) / folds
+            members = [rows[m["number"]] for m in cand["members"] if m["number"] in rows]
+            need = refit_seconds(members, self.spec.folds)
             if cand["kind"] == "library" and need > left:
                 passed.append(cand["id"])
                 continue
@@ -305,7 +318,7 @@ class Finalizer:
         reported ``score`` stays the plain CV score.
         """
         by_number = {int(r["number"]): r for r in board}
-        optimism = max((float(e.get("trial_optimism", 0.0)) for e in library), default=0.0)
+        optimism = trial_optimism(library)
         out = [
             {
                 "id": f"t{r['number']}",

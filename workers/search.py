@@ -29,6 +29,7 @@ from workers.context import WorkerContext
 from workers.datasets import family_context
 from workers.families import get_family
 from workers.families._base import FamilyContext
+from workers.finalize import refit_seconds
 from workers.journal import journal_storage
 from workers.trial_work import oof_bytes
 
@@ -250,8 +251,7 @@ class Shard:
             return 0.0
         if now - self._reserve_at >= REFIT_ESTIMATE_EVERY:
             rows = self.store.board(self.job_id, limit=REFIT_ESTIMATE_TOP)
-            folds = max(self.spec.folds - 1, 1)
-            need = sum(float(r.get("fit_seconds") or 0.0) / folds for r in rows)
+            need = refit_seconds(rows, self.spec.folds)
             self._reserve, self._reserve_at = REFIT_SAFETY * need, now
         return self._reserve
 
