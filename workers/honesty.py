@@ -198,13 +198,8 @@ def scores_on_rows(
     set (greedy ensemble selection), where calling a scikit-learn metric per candidate costs
     about a millisecond each.
     """
-    metric = Metric(metric)
-    y = np.asarray(y)
-    if metric in (Metric.RMSE, Metric.MAE, Metric.R2):
-        y, classes = y.astype(float), None
-    elif classes is None:
-        classes = np.unique(y)
-    spec = _mean_terms(metric, y, preds, classes)
+    y, _, resolved, classes = _resolve(np.asarray(y), str(Metric(metric).value), classes)
+    spec = _mean_terms(Metric(resolved), y, preds, classes)
     return _inbag_scores(spec, np.ones((1, len(y)), dtype=np.int32))[0]
 
 
