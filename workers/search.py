@@ -513,8 +513,11 @@ class Shard:
             self.store.return_ticket(self.job_id)
             self.store.add_failure(self.job_id)
             family = str(t.params.get("family", "unknown"))
+            retries = int(t.user_attrs.get("retries", 0))
             row = {
                 "number": t.number,
+                "retry_of": t.user_attrs.get("retry_of"),
+                "retries": retries,
                 "family": family,
                 "state": "failed",
                 "params": {k: v for k, v in t.params.items() if k != "family"},
@@ -524,7 +527,6 @@ class Shard:
             }
             self.store.record_trial(self.job_id, row)
             self.log(f"trial {t.number} reaped (lease expired)")
-            retries = int(t.user_attrs.get("retries", 0))
             if retries < MAX_RETRIES and "family" in t.params:
                 study.enqueue_trial(
                     dict(t.params), user_attrs={"retry_of": t.number, "retries": retries + 1}

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import pytest
 import redis
+from optuna.trial import TrialState
 from sklearn.datasets import load_iris
 
 from service.config import Settings
@@ -14,6 +15,7 @@ from service.doctor import PROBLEM, diagnose
 from service.store import JobState
 from tests.conftest import RedisProcess
 from workers.context import WorkerContext
+from workers.search import MAX_RETRIES, Shard, open_study
 from workers.sweep import sweep
 
 pytestmark = pytest.mark.integration
@@ -81,3 +83,37 @@ def test_jobs_queue_in_submission_order_and_high_priority_jumps_ahead(client) ->
     urgent = client.submit(frame, target="target", max_trials=1, parallelism=1, priority="high")
     order = [q.args[0] for q in client.queue.search.get_jobs()]
     assert order == [urgent.id, first.id, second.id]
+
+
+def test_reaper_keeps_a_retry_chain_and_stops_it_at_the_retry_cap(
+    client,
+    redis_url: str,  # type: ignore[no-untyped-def]
+    prefix: str,
+) -> None:
+    """A reaped trial's row names the trial it retried; its own retry follows, up to the cap."""
+    frame = load_iris(as_frame=True).frame
+    job = client.submit(frame, target="target", max_trials=3, parallelism=1)
+    ctx = WorkerContext.create(
+        Settings(redis_url=redis_url, prefix=prefix, lease_seconds=0.5), redis_url
+    )
+    shard = Shard(ctx, job.id, 0)
+    study = open_study(ctx, job.id, seed=0)
+    numbers = []
+    for retries in (1, MAX_RETRIES):  # a worker died mid-trial twice; no lease is held
+        t = study.ask()
+        t.suggest_categorical("family", ["single"])
+        t.set_user_attr("retry_of", 100 + retries)
+        t.set_user_attr("retries", retries)
+        numbers.append(t.number)
+    time.sleep(1.1)  # two lease periods: past the grace given to a trial just asked
+    assert shard.reap(study, force=True) == 2
+    rows = {r["number"]: r for r in client.store.trial_rows(job.id)}
+    for n, retries in zip(numbers, (1, MAX_RETRIES), strict=True):
+        assert rows[n]["reaped"] and rows[n]["state"] == "failed"
+        assert (rows[n]["retry_of"], rows[n]["retries"]) == (100 + retries, retries)
+    waiting = study.get_trials(deepcopy=False, states=(TrialState.WAITING,))
+    # only the first is retried: the second already used MAX_RETRIES
+    assert [(w.user_attrs["retry_of"], w.user_attrs["retries"]) for w in waiting] == [
+        (numbers[0], 2)
+    ]
+    assert waiting[0].system_attrs["fixed_params"] == {"family": "single"}
