@@ -14,8 +14,19 @@ def default_home() -> Path:
 
 
 def _env_float(name: str, default: float) -> float:
+    """A non-negative number from the environment, or ``default`` when the variable is unset."""
     raw = os.environ.get(name)
-    return float(raw) if raw not in (None, "") else default
+    if raw in (None, ""):
+        return default
+    try:
+        value = float(raw)
+    except ValueError:
+        value = float("nan")
+    if not value >= 0:  # also refuses NaN
+        raise ValueError(
+            f"{name}={raw!r} is not a non-negative number; set it to e.g. {default:g} or unset it"
+        )
+    return value
 
 
 @dataclass(frozen=True)
@@ -30,6 +41,9 @@ class Settings:
         lease_seconds: expiry of a running trial's lease; a trial whose lease lapsed is reaped.
         max_upload_bytes: size cap of one uploaded table (encoded Parquet bytes).
         artifact_key: optional HMAC key that signs stored pipelines (``TUTTI_ARTIFACT_KEY``).
+        explain_min_seconds: the least time finalize gives explanations that fit models
+            (``TUTTI_EXPLAIN_MIN_SECONDS``); with less time left before the deadline they are
+            skipped. Lower it for quick jobs whose explanations nobody reads.
     """
 
     redis_url: str | None = None
@@ -39,6 +53,7 @@ class Settings:
     lease_seconds: float = 20.0
     max_upload_bytes: int = 2 * 1024**3
     artifact_key: str | None = None
+    explain_min_seconds: float = 30.0
 
     @classmethod
     def from_env(cls, **overrides: object) -> Settings:
@@ -53,6 +68,7 @@ class Settings:
             lease_seconds=_env_float("TUTTI_LEASE_SECONDS", 20.0),
             max_upload_bytes=int(_env_float("TUTTI_MAX_UPLOAD_BYTES", 2 * 1024**3)),
             artifact_key=os.environ.get("TUTTI_ARTIFACT_KEY") or None,
+            explain_min_seconds=_env_float("TUTTI_EXPLAIN_MIN_SECONDS", 30.0),
         )
         given = {k: v for k, v in overrides.items() if v is not None}
         if "home" in given:

@@ -54,6 +54,9 @@ def client(redis_url: str, prefix: str):  # type: ignore[no-untyped-def]
     c.close()
 
 
+QUICK_EXPLAIN_SECONDS = "5"
+
+
 def start_workers(
     url: str,
     prefix: str,
@@ -64,7 +67,12 @@ def start_workers(
     log: Path | None = None,
     via_cli: bool = False,
 ) -> subprocess.Popen[bytes]:
-    """Start worker processes the way users do (``python -m workers`` or ``tutti worker``)."""
+    """Start worker processes the way users do (``python -m workers`` or ``tutti worker``).
+
+    Their explanations get 5 s instead of the default 30 (``TUTTI_EXPLAIN_MIN_SECONDS``):
+    most tests' jobs search for seconds and read no explanations. Tests of explanations or of
+    the deadline pass the default back in ``env``.
+    """
     if via_cli:
         cmd = [sys.executable, "-m", "service.cli", "worker"]
     else:
@@ -72,7 +80,12 @@ def start_workers(
     cmd += ["--processes", str(processes), "--redis-url", url, "--prefix", prefix]
     if burst:
         cmd.append("--burst")
-    full_env = {**os.environ, "PYTHONPATH": str(ROOT), **(env or {})}
+    full_env = {
+        **os.environ,
+        "PYTHONPATH": str(ROOT),
+        "TUTTI_EXPLAIN_MIN_SECONDS": QUICK_EXPLAIN_SECONDS,
+        **(env or {}),
+    }
     out = open(log, "ab") if log else subprocess.DEVNULL  # noqa: SIM115
     return subprocess.Popen(
         cmd, env=full_env, stdout=out, stderr=subprocess.STDOUT, start_new_session=True

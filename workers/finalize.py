@@ -27,7 +27,6 @@ REFIT_TRIES = 3
 PARETO_REFITS = 3
 TOP_N = 5
 EXPLAIN_MAX_SECONDS = 900.0
-EXPLAIN_MIN_SECONDS = 30.0
 EXPLAIN_SHARE = 0.25
 
 
@@ -239,15 +238,17 @@ class Finalizer:
         """Honest estimate, significance, bias/variance, diagnostics, leakage (time-bounded)."""
         started = float(self.record.get("started_at") or time.time())
         searched = max(time.time() - started, 0.0)
-        # explanations cost at most a quarter of the search time (at least 30 s), never more
-        # than 60% of the time left before the deadline; with less than 30 s to spend, the
-        # parts that fit models are skipped (listed as such) so a short job ends on time
+        # explanations cost at most a quarter of the search time (at least the floor, 30 s by
+        # default), never more than 60% of the time left before the deadline; with less than
+        # the floor to spend, the parts that fit models are skipped (listed as such) so a short
+        # job ends on time
+        floor = self.ctx.settings.explain_min_seconds
         budget = min(
-            max(EXPLAIN_SHARE * searched, EXPLAIN_MIN_SECONDS),
+            max(EXPLAIN_SHARE * searched, floor),
             max(self.time_left() * 0.6, 0.0),
             EXPLAIN_MAX_SECONDS,
         )
-        fits_allowed = budget >= EXPLAIN_MIN_SECONDS
+        fits_allowed = budget >= floor
         top = [
             {
                 "id": c["id"],

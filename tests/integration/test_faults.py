@@ -314,7 +314,8 @@ def test_cancel_stops_workers_within_a_fold_and_keeps_best_so_far(
 def test_deadline_stops_the_search_in_time(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
-    env = _faults({"sleep_fold": 0.5})
+    # the default floor of explanations (30 s): a 25 s job leaves less, so fits are skipped
+    env = {**_faults({"sleep_fold": 0.5}), "TUTTI_EXPLAIN_MIN_SECONDS": "30"}
     job = _submit(
         client,
         max_trials=500,

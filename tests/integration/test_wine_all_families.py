@@ -28,7 +28,11 @@ def test_every_family_runs_and_the_winner_matches_the_published_accuracy(
         trial_timeout=300,
     )
     workers = start_workers(
-        redis_url, prefix, 2, log=tmp_path / "w.log", env={"TUTTI_SHARD_SECONDS": "20"}
+        redis_url,
+        prefix,
+        2,
+        log=tmp_path / "w.log",
+        env={"TUTTI_SHARD_SECONDS": "20", "TUTTI_EXPLAIN_MIN_SECONDS": "30"},
     )
     try:
         status = job.wait(timeout=900)
