@@ -44,6 +44,8 @@ class Settings:
         explain_min_seconds: the least time finalize gives explanations that fit models
             (``TUTTI_EXPLAIN_MIN_SECONDS``); with less time left before the deadline they are
             skipped. Lower it for quick jobs whose explanations nobody reads.
+        explain_max_seconds: the most time finalize gives explanations
+            (``TUTTI_EXPLAIN_MAX_SECONDS``); otherwise a quarter of the search time.
     """
 
     redis_url: str | None = None
@@ -54,6 +56,7 @@ class Settings:
     max_upload_bytes: int = 2 * 1024**3
     artifact_key: str | None = None
     explain_min_seconds: float = 30.0
+    explain_max_seconds: float = 900.0
 
     @classmethod
     def from_env(cls, **overrides: object) -> Settings:
@@ -69,6 +72,7 @@ class Settings:
             max_upload_bytes=int(_env_float("TUTTI_MAX_UPLOAD_BYTES", 2 * 1024**3)),
             artifact_key=os.environ.get("TUTTI_ARTIFACT_KEY") or None,
             explain_min_seconds=_env_float("TUTTI_EXPLAIN_MIN_SECONDS", 30.0),
+            explain_max_seconds=_env_float("TUTTI_EXPLAIN_MAX_SECONDS", 900.0),
         )
         given = {k: v for k, v in overrides.items() if v is not None}
         if "home" in given:

@@ -54,7 +54,9 @@ def client(redis_url: str, prefix: str):  # type: ignore[no-untyped-def]
     c.close()
 
 
-QUICK_EXPLAIN_SECONDS = "5"
+# explanations of test jobs: a 3 s floor and a 5 s cap instead of 30 s and 900 s
+QUICK_EXPLAIN = {"TUTTI_EXPLAIN_MIN_SECONDS": "3", "TUTTI_EXPLAIN_MAX_SECONDS": "5"}
+DEFAULT_EXPLAIN = {"TUTTI_EXPLAIN_MIN_SECONDS": "30", "TUTTI_EXPLAIN_MAX_SECONDS": "900"}
 
 
 def start_workers(
@@ -69,9 +71,9 @@ def start_workers(
 ) -> subprocess.Popen[bytes]:
     """Start worker processes the way users do (``python -m workers`` or ``tutti worker``).
 
-    Their explanations get 5 s instead of the default 30 (``TUTTI_EXPLAIN_MIN_SECONDS``):
-    most tests' jobs search for seconds and read no explanations. Tests of explanations or of
-    the deadline pass the default back in ``env``.
+    Their explanations get 3–5 s instead of 30–900 s (``QUICK_EXPLAIN``): most tests' jobs
+    search for seconds and read no explanations. Tests of explanations or of the deadline pass
+    ``DEFAULT_EXPLAIN`` back in ``env``.
     """
     if via_cli:
         cmd = [sys.executable, "-m", "service.cli", "worker"]
@@ -83,7 +85,7 @@ def start_workers(
     full_env = {
         **os.environ,
         "PYTHONPATH": str(ROOT),
-        "TUTTI_EXPLAIN_MIN_SECONDS": QUICK_EXPLAIN_SECONDS,
+        **QUICK_EXPLAIN,
         **(env or {}),
     }
     out = open(log, "ab") if log else subprocess.DEVNULL  # noqa: SIM115

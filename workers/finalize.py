@@ -26,7 +26,6 @@ log = logging.getLogger(__name__)
 REFIT_TRIES = 3
 PARETO_REFITS = 3
 TOP_N = 5
-EXPLAIN_MAX_SECONDS = 900.0
 EXPLAIN_SHARE = 0.25
 
 
@@ -238,15 +237,15 @@ class Finalizer:
         """Honest estimate, significance, bias/variance, diagnostics, leakage (time-bounded)."""
         started = float(self.record.get("started_at") or time.time())
         searched = max(time.time() - started, 0.0)
-        # explanations cost at most a quarter of the search time (at least the floor, 30 s by
-        # default), never more than 60% of the time left before the deadline; with less than
-        # the floor to spend, the parts that fit models are skipped (listed as such) so a short
-        # job ends on time
-        floor = self.ctx.settings.explain_min_seconds
+        # explanations cost a quarter of the search time, at least the floor and at most the
+        # cap (30 s and 900 s by default), never more than 60% of the time left before the
+        # deadline; with less than the floor to spend, the parts that fit models are skipped
+        # (listed as such) so a short job ends on time
+        floor = min(self.ctx.settings.explain_min_seconds, self.ctx.settings.explain_max_seconds)
         budget = min(
             max(EXPLAIN_SHARE * searched, floor),
             max(self.time_left() * 0.6, 0.0),
-            EXPLAIN_MAX_SECONDS,
+            self.ctx.settings.explain_max_seconds,
         )
         fits_allowed = budget >= floor
         top = [

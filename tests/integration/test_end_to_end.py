@@ -70,7 +70,7 @@ def test_two_workers_search_breast_cancer(
     meta = job.artifact_meta()
     assert meta["cv_score"] >= 0.95
     assert board["accuracy"].iloc[0] >= 0.95
-    # with the tests' 5 s floor for explanations (conftest), the parts that fit models still
+    # with the tests' 3–5 s for explanations (conftest), the parts that fit models still
     # ran: #1 against #2 and the winner's bias/variance always get done
     explain = job.extras()["explain"]
     assert explain["significance"] and explain["bias_variance"], explain["skipped"]

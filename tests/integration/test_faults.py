@@ -22,7 +22,7 @@ from optuna.trial import TrialState
 from sklearn.datasets import load_breast_cancer
 
 from service.client import Client
-from tests.conftest import RedisProcess, start_workers
+from tests.conftest import DEFAULT_EXPLAIN, RedisProcess, start_workers
 from workers.journal import journal_storage
 from workers.search import MAX_RETRIES
 
@@ -226,7 +226,7 @@ def test_sigterm_finishes_the_current_trial_and_exits(
     env = _faults({"sleep_fold": 0.6})
     job = _submit(
         client,
-        max_trials=8,
+        max_trials=5,
         parallelism=1,
         seed=3,
         families=["boosting"],
@@ -247,7 +247,7 @@ def test_sigterm_finishes_the_current_trial_and_exits(
     finally:
         w2.wait(timeout=120)
     assert status["state"] == "finished"
-    assert sum(r["state"] in ("complete", "pruned") for r in client.store.trial_rows(job.id)) == 8
+    assert sum(r["state"] in ("complete", "pruned") for r in client.store.trial_rows(job.id)) == 5
     print("FIGURE faults_survived sigterm 1")
 
 
@@ -315,7 +315,7 @@ def test_deadline_stops_the_search_in_time(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
     # the default floor of explanations (30 s): a 25 s job leaves less, so fits are skipped
-    env = {**_faults({"sleep_fold": 0.5}), "TUTTI_EXPLAIN_MIN_SECONDS": "30"}
+    env = {**_faults({"sleep_fold": 0.5}), **DEFAULT_EXPLAIN}
     job = _submit(
         client,
         max_trials=500,

@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 from sklearn.datasets import load_breast_cancer
 
-from tests.conftest import QUICK_EXPLAIN_SECONDS, ROOT, RedisProcess
+from tests.conftest import QUICK_EXPLAIN, ROOT, RedisProcess
 
 pytestmark = pytest.mark.integration
 
@@ -27,7 +27,7 @@ def _machine(base: Path, name: str) -> dict[str, str]:
         TUTTI_HOME=str(home / "tutti"),
         PYTHONPATH=str(ROOT),
         TUTTI_SHARD_SECONDS="10",
-        TUTTI_EXPLAIN_MIN_SECONDS=QUICK_EXPLAIN_SECONDS,
+        **QUICK_EXPLAIN,
     )
     return env
 

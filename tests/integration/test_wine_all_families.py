@@ -8,7 +8,7 @@ import pytest
 from sklearn.datasets import load_wine
 
 from service.spec import KNOWN_FAMILIES
-from tests.conftest import start_workers
+from tests.conftest import DEFAULT_EXPLAIN, start_workers
 
 pytestmark = [pytest.mark.integration, pytest.mark.slow]
 
@@ -32,7 +32,7 @@ def test_every_family_runs_and_the_winner_matches_the_published_accuracy(
         prefix,
         2,
         log=tmp_path / "w.log",
-        env={"TUTTI_SHARD_SECONDS": "20", "TUTTI_EXPLAIN_MIN_SECONDS": "30"},
+        env={"TUTTI_SHARD_SECONDS": "20", **DEFAULT_EXPLAIN},
     )
     try:
         status = job.wait(timeout=900)
