@@ -470,11 +470,14 @@ class Shard:
         row.update(state="failed", error=error[:2000], finished_at=time.time(), retries=retries)
         self.store.record_trial(self.job_id, row)
         self.log(f"trial {trial.number} failed ({n_fail} so far): {error[:300]}")
-        if retry and retries < MAX_RETRIES and "family" in row and row.get("params") is not None:
-            study.enqueue_trial(
-                {"family": row["family"], **row["params"]},
-                user_attrs={"retry_of": trial.number, "retries": retries + 1},
-            )
+        if retry and "family" in row and row.get("params") is not None:
+            self._retry(study, trial.number, {"family": row["family"], **row["params"]}, retries)
+
+    @staticmethod
+    def _retry(study: optuna.Study, number: int, params: dict[str, Any], retries: int) -> None:
+        """Queue a failed trial's parameters again, unless they were retried MAX_RETRIES times."""
+        if retries < MAX_RETRIES:
+            study.enqueue_trial(params, user_attrs={"retry_of": number, "retries": retries + 1})
 
     # ----------------------------------------------------------------- reaper
     def store_settled(self, lease: float) -> bool:
@@ -527,8 +530,6 @@ class Shard:
             }
             self.store.record_trial(self.job_id, row)
             self.log(f"trial {t.number} reaped (lease expired)")
-            if retries < MAX_RETRIES and "family" in t.params:
-                study.enqueue_trial(
-                    dict(t.params), user_attrs={"retry_of": t.number, "retries": retries + 1}
-                )
+            if "family" in t.params:
+                self._retry(study, t.number, dict(t.params), retries)
         return n
