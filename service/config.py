@@ -24,7 +24,8 @@ def _env_float(name: str, default: float) -> float:
         value = float("nan")
     if not value >= 0:  # also refuses NaN
         raise ValueError(
-            f"{name}={raw!r} is not a non-negative number; set it to e.g. {default:g} or unset it"
+            f"{name}={raw!r} is not a non-negative number; "
+            f"set it to e.g. {default:.10g} or unset it"
         )
     return value
 
@@ -67,12 +68,12 @@ class Settings:
             home=Path(os.environ["TUTTI_HOME"])
             if os.environ.get("TUTTI_HOME")
             else default_home(),
-            shard_seconds=_env_float("TUTTI_SHARD_SECONDS", 45.0),
-            lease_seconds=_env_float("TUTTI_LEASE_SECONDS", 20.0),
-            max_upload_bytes=int(_env_float("TUTTI_MAX_UPLOAD_BYTES", 2 * 1024**3)),
+            shard_seconds=_env_float("TUTTI_SHARD_SECONDS", cls.shard_seconds),
+            lease_seconds=_env_float("TUTTI_LEASE_SECONDS", cls.lease_seconds),
+            max_upload_bytes=int(_env_float("TUTTI_MAX_UPLOAD_BYTES", cls.max_upload_bytes)),
             artifact_key=os.environ.get("TUTTI_ARTIFACT_KEY") or None,
-            explain_min_seconds=_env_float("TUTTI_EXPLAIN_MIN_SECONDS", 30.0),
-            explain_max_seconds=_env_float("TUTTI_EXPLAIN_MAX_SECONDS", 900.0),
+            explain_min_seconds=_env_float("TUTTI_EXPLAIN_MIN_SECONDS", cls.explain_min_seconds),
+            explain_max_seconds=_env_float("TUTTI_EXPLAIN_MAX_SECONDS", cls.explain_max_seconds),
         )
         given = {k: v for k, v in overrides.items() if v is not None}
         if "home" in given:

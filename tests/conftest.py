@@ -14,6 +14,7 @@ from typing import Any
 import pytest
 import redis
 
+from service.config import Settings
 from tests.redis_process import RedisProcess
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -56,7 +57,10 @@ def client(redis_url: str, prefix: str):  # type: ignore[no-untyped-def]
 
 # explanations of test jobs: a 3 s floor and a 5 s cap instead of 30 s and 900 s
 QUICK_EXPLAIN = {"TUTTI_EXPLAIN_MIN_SECONDS": "3", "TUTTI_EXPLAIN_MAX_SECONDS": "5"}
-DEFAULT_EXPLAIN = {"TUTTI_EXPLAIN_MIN_SECONDS": "30", "TUTTI_EXPLAIN_MAX_SECONDS": "900"}
+DEFAULT_EXPLAIN = {
+    "TUTTI_EXPLAIN_MIN_SECONDS": str(Settings.explain_min_seconds),
+    "TUTTI_EXPLAIN_MAX_SECONDS": str(Settings.explain_max_seconds),
+}
 
 
 def start_workers(
