@@ -5,5 +5,6 @@ WORKDIR /app
 COPY pyproject.toml README.md ./
 COPY service ./service
 COPY workers ./workers
+COPY tuttiml ./tuttiml
 RUN pip install --no-cache-dir .
 CMD ["tutti", "worker"]

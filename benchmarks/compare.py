@@ -578,7 +578,7 @@ def main(argv: list[str] | None = None) -> int:
     tables = [load_table(n) for n in names]
     results: list[Result] = []
     with _common.private_redis() as server:
-        from service.client import Client
+        from tuttiml.service.client import Client
 
         client = Client(url=server.url, prefix=_common.new_prefix())
         workers = None

@@ -14,9 +14,8 @@ from sklearn.datasets import make_classification, make_regression
 from sklearn.ensemble import BaggingClassifier, RandomForestRegressor
 from sklearn.linear_model import LogisticRegression, Ridge
 from sklearn.tree import DecisionTreeClassifier
-
-from workers.biasvar import bias_variance, holdout_split
-from workers.honesty import bbc_cv
+from tuttiml.workers.biasvar import bias_variance, holdout_split
+from tuttiml.workers.honesty import bbc_cv
 
 
 def _bbc(rows: int, candidates: int, n_boot: int, metric: str) -> None:

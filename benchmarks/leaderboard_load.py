@@ -15,10 +15,9 @@ import time
 
 import _common
 import numpy as np
-
-from service.client import Client
-from service.keys import Keys
-from service.store import JobStore
+from tuttiml.service.client import Client
+from tuttiml.service.keys import Keys
+from tuttiml.service.store import JobStore
 
 
 def main() -> None:

@@ -42,7 +42,7 @@ def main() -> int:
         ap.error(f"unknown dataset(s) {unknown}; choose from {', '.join(LOADERS)}")
     rows = []
     with _common.private_redis() as server:
-        from service.client import Client
+        from tuttiml.service.client import Client
 
         client = Client(url=server.url, prefix=_common.new_prefix())
         with _common.Workers(server.url, client.settings.prefix, args.cores, burst=False):

@@ -22,13 +22,12 @@ import numpy as np
 import optuna
 from _common import print_table
 from sklearn import datasets as skd
-
-from service.data import prepare
-from service.spec import Metric, SearchSpec
-from workers.datasets import build_dataset
-from workers.evaluation import Pruned, cross_validate
-from workers.families import get_family
-from workers.search import make_pruner
+from tuttiml.service.data import prepare
+from tuttiml.service.spec import Metric, SearchSpec
+from tuttiml.workers.datasets import build_dataset
+from tuttiml.workers.evaluation import Pruned, cross_validate
+from tuttiml.workers.families import get_family
+from tuttiml.workers.search import make_pruner
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 FAMILIES = ("boosting", "bagging", "single")

@@ -81,8 +81,7 @@ import numpy as np
 import pandas as pd
 import psutil
 from sklearn.datasets import make_classification
-
-from service.client import Client, Job
+from tuttiml.service.client import Client, Job
 
 TARGET = "y"
 TERMINAL = ("finished", "failed", "cancelled")
@@ -110,7 +109,7 @@ class Launcher(_common.Workers):
         env: dict[str, str] | None = None,
         log: Path | None = None,
     ) -> None:
-        cmd = [sys.executable, "-m", "workers", "--processes", str(processes)]
+        cmd = [sys.executable, "-m", "tuttiml.workers", "--processes", str(processes)]
         cmd += ["--redis-url", url, "--prefix", prefix]
         if cores:
             cmd += ["--cores", str(cores)]
@@ -285,10 +284,9 @@ def pin_candidates(client: Client, job: Job, n: int) -> None:
     what is left of a trial is the 0.3 s sleep and the store.
     """
     import optuna
-
-    from workers.families._learners import LEARNERS
-    from workers.journal import journal_storage
-    from workers.search import context_from_record
+    from tuttiml.workers.families._learners import LEARNERS
+    from tuttiml.workers.journal import journal_storage
+    from tuttiml.workers.search import context_from_record
 
     ctx = context_from_record(job.record(), 0)
     prefix = f"single.{PINNED_LEARNER}"
@@ -486,8 +484,8 @@ OPEN_STUDY = textwrap.dedent(
     import json, sys, time, warnings
     t0 = time.perf_counter()
     import optuna
-    from service.connection import connect
-    from workers.journal import journal_storage
+    from tuttiml.service.connection import connect
+    from tuttiml.workers.journal import journal_storage
     t1 = time.perf_counter()
     optuna.logging.set_verbosity(optuna.logging.WARNING)
     url, key, name = sys.argv[1:4]

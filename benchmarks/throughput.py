@@ -47,17 +47,16 @@ import optuna
 import pandas as pd
 from optuna.trial import TrialState
 from sklearn.datasets import make_classification
-
-from service import data as tables
-from service.client import Client
-from service.spec import Metric, parse_spec
-from workers import ensembling
-from workers.datasets import Dataset, build_dataset
-from workers.evaluation import Pruned, cross_validate
-from workers.families import get_family
-from workers.families._learners import LEARNERS
-from workers.journal import journal_storage
-from workers.search import make_pruner
+from tuttiml.service import data as tables
+from tuttiml.service.client import Client
+from tuttiml.service.spec import Metric, parse_spec
+from tuttiml.workers import ensembling
+from tuttiml.workers.datasets import Dataset, build_dataset
+from tuttiml.workers.evaluation import Pruned, cross_validate
+from tuttiml.workers.families import get_family
+from tuttiml.workers.families._learners import LEARNERS
+from tuttiml.workers.journal import journal_storage
+from tuttiml.workers.search import make_pruner
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 

@@ -1,13 +1,13 @@
 """tutti's job side: submit ensemble searches, follow them and take away the best pipeline."""
 
-from service.errors import (
+from tuttiml.service.errors import (
     ArtifactError,
     EnsembleSearchError,
     InvalidDataError,
     InvalidSpecError,
     JobNotFoundError,
 )
-from service.spec import Metric, SearchSpec, Task
+from tuttiml.service.spec import Metric, SearchSpec, Task
 
 __all__ = [
     "ArtifactError",
@@ -26,7 +26,7 @@ __all__ = [
 def __getattr__(name: str) -> object:
     # Client pulls in redis and rq; keep `import service` light for spec-only users.
     if name in ("Client", "Job"):
-        from service import client
+        from tuttiml.service import client
 
         return getattr(client, name)
     raise AttributeError(name)

@@ -9,13 +9,15 @@ from __future__ import annotations
 
 import hashlib
 import hmac
+import io
 import json
 import warnings
+import zipfile
 from pathlib import Path
 from typing import Any
 
-from service.errors import ArtifactError
-from service.trusted import TRUSTED_TYPES
+from tuttiml.service.errors import ArtifactError
+from tuttiml.service.trusted import LEGACY_MODULES, TRUSTED_TYPES
 
 
 def check_integrity(blob: bytes, meta: dict[str, Any], key: str | None) -> None:
@@ -55,6 +57,30 @@ def _version_warning(meta: dict[str, Any]) -> None:
         pass
 
 
+def upgrade_legacy_paths(blob: bytes) -> bytes:
+    """Map class paths of files exported before the ``tuttiml`` namespace to today's.
+
+    Such files name ``workers.ensembling.*``; importing that would pick up whatever package
+    called ``workers`` the user's application has. Only the schema's module names change, so
+    the estimators load exactly as they were fitted. Other bytes come back unchanged.
+    """
+    try:
+        with zipfile.ZipFile(io.BytesIO(blob)) as src:
+            schema = src.read("schema.json").decode()
+            if not any(f'"{old}"' in schema for old in LEGACY_MODULES):
+                return blob
+            for old, new in LEGACY_MODULES.items():
+                schema = schema.replace(f'"__module__": "{old}"', f'"__module__": "{new}"')
+            out = io.BytesIO()
+            with zipfile.ZipFile(out, "w", compression=zipfile.ZIP_DEFLATED) as dst:
+                for item in src.infolist():
+                    data = schema.encode() if item.filename == "schema.json" else src.read(item)
+                    dst.writestr(item, data)
+            return out.getvalue()
+    except (zipfile.BadZipFile, KeyError):
+        return blob  # not a skops archive: the checks below say so
+
+
 def load_pipeline(blob: bytes, meta: dict[str, Any], *, key: str | None = None) -> Any:
     """Verify and load a fitted pipeline from skops bytes.
 
@@ -64,6 +90,7 @@ def load_pipeline(blob: bytes, meta: dict[str, Any], *, key: str | None = None) 
     import skops.io as sio
 
     check_integrity(blob, meta, key)
+    blob = upgrade_legacy_paths(blob)
     try:
         found = set(sio.get_untrusted_types(data=blob))
     except Exception as exc:

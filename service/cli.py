@@ -11,7 +11,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any, TextIO
 
-from service.errors import EnsembleSearchError, InvalidSpecError
+from tuttiml.service.errors import EnsembleSearchError, InvalidSpecError
 
 #: Tables whose Parquet bytes reach this size get an upload progress bar (one store chunk).
 BAR_MIN_BYTES = 64 * 1024 * 1024
@@ -19,7 +19,7 @@ EPILOG = "Set TUTTI_REDIS_URL (or --redis-url) to share one Redis between machin
 
 
 def _client(args: argparse.Namespace) -> Any:
-    from service.client import Client
+    from tuttiml.service.client import Client
 
     return Client(url=args.redis_url, prefix=args.prefix)
 
@@ -119,7 +119,7 @@ def _print_table(rows: list[list[str]], header: list[str]) -> None:
 
 
 def cmd_status(args: argparse.Namespace) -> int:
-    from service.client import _fmt_seconds
+    from tuttiml.service.client import _fmt_seconds
 
     client = _client(args)
     jobs = [client.job(args.job)] if args.job else client.jobs()
@@ -209,10 +209,9 @@ def cmd_export(args: argparse.Namespace) -> int:
 def cmd_predict(args: argparse.Namespace) -> int:
     import numpy as np
     import pandas as pd
-
-    from service.artifacts import read_export
-    from service.config import Settings
-    from service.data import read_table
+    from tuttiml.service.artifacts import read_export
+    from tuttiml.service.config import Settings
+    from tuttiml.service.data import read_table
 
     model, meta = read_export(Path(args.model), key=Settings.from_env().artifact_key)
     frame = read_table(args.data)
@@ -311,8 +310,8 @@ def cmd_doctor(args: argparse.Namespace) -> int:
 
 
 def cmd_server(args: argparse.Namespace) -> int:
-    from service.config import Settings
-    from service.server import EmbeddedServer
+    from tuttiml.service.config import Settings
+    from tuttiml.service.server import EmbeddedServer
 
     server = EmbeddedServer(Settings.from_env().home)
     if args.action == "status":
@@ -328,13 +327,13 @@ def cmd_server(args: argparse.Namespace) -> int:
 
 
 def cmd_worker(args: argparse.Namespace, rest: list[str]) -> int:
-    argv = [sys.executable, "-m", "workers", *rest]
+    argv = [sys.executable, "-m", "tuttiml.workers", *rest]
     os.execv(sys.executable, argv)
     return 0  # pragma: no cover
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from service.demo import run_demo
+    from tuttiml.service.demo import run_demo
 
     return run_demo(
         trials=args.trials,

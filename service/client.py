@@ -11,16 +11,15 @@ from pathlib import Path
 from typing import Any
 
 import pandas as pd
-
-from service import data as tables
-from service.artifacts import load_pipeline, write_export
-from service.config import Settings
-from service.connection import connect, resolve_url
-from service.errors import ArtifactError, JobStateError
-from service.keys import Keys, check_id
-from service.queue import TaskQueue
-from service.spec import LOWER_IS_BETTER, Metric, SearchSpec, parse_spec
-from service.store import JobState, JobStore
+from tuttiml.service import data as tables
+from tuttiml.service.artifacts import load_pipeline, write_export
+from tuttiml.service.config import Settings
+from tuttiml.service.connection import connect, resolve_url
+from tuttiml.service.errors import ArtifactError, JobStateError
+from tuttiml.service.keys import Keys, check_id
+from tuttiml.service.queue import TaskQueue
+from tuttiml.service.spec import LOWER_IS_BETTER, Metric, SearchSpec, parse_spec
+from tuttiml.service.store import JobState, JobStore
 
 SHARD_TIMEOUT_SLACK = 600.0
 
@@ -173,7 +172,7 @@ class Client:
 
     def doctor(self) -> list[Any]:
         """Checks of the Redis server this client points at (see ``service.doctor``)."""
-        from service.doctor import diagnose
+        from tuttiml.service.doctor import diagnose
 
         return diagnose(self.redis, self.url, embedded=not self.settings.redis_url)
 
@@ -421,8 +420,8 @@ class Job:
 
     def report(self, path: str | Path) -> Path:
         """Write the self-contained HTML report of this job."""
-        from service.report import write_report
-        from service.report_data import collect
+        from tuttiml.service.report import write_report
+        from tuttiml.service.report_data import collect
 
         return write_report(collect(self), Path(path))
 

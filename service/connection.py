@@ -7,10 +7,9 @@ from urllib.parse import urlparse
 import redis
 from redis.backoff import ExponentialBackoff
 from redis.retry import Retry
-
-from service.config import Settings
-from service.errors import StoreUnavailableError
-from service.server import EmbeddedServer
+from tuttiml.service.config import Settings
+from tuttiml.service.errors import StoreUnavailableError
+from tuttiml.service.server import EmbeddedServer
 
 #: Enough retries to ride out a Redis restart of about a minute (backoff capped at 2 s).
 RETRIES = 45

@@ -34,9 +34,8 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
-
-from service.errors import InvalidDataError, InvalidSpecError
-from service.spec import SearchSpec, Task
+from tuttiml.service.errors import InvalidDataError, InvalidSpecError
+from tuttiml.service.spec import SearchSpec, Task
 
 __all__ = [
     "HIGH_CARDINALITY",

@@ -94,9 +94,8 @@ def run_demo(
 ) -> int:
     """Generate data, start local workers, search, print the board, export and score."""
     from sklearn.metrics import roc_auc_score
-
-    from service.cli import _print_board
-    from service.client import Client
+    from tuttiml.service.cli import _print_board
+    from tuttiml.service.client import Client
 
     frame = pump_stations()
     rng = np.random.default_rng(1)

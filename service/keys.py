@@ -11,7 +11,7 @@ _ID = re.compile(r"^[A-Za-z0-9_-]{1,64}$")
 def check_id(value: str, what: str = "job id") -> str:
     """Refuse ids that could escape their key (colons, spaces, wildcards)."""
     if not isinstance(value, str) or not _ID.match(value):
-        from service.errors import JobNotFoundError
+        from tuttiml.service.errors import JobNotFoundError
 
         raise JobNotFoundError(
             f"{what} {value!r} is not valid: ids use only letters, digits, '-' and '_'; "

@@ -4,12 +4,11 @@ from __future__ import annotations
 
 import redis
 from rq import Queue
-
-from service.keys import Keys
+from tuttiml.service.keys import Keys
 
 SERIALIZER = "json"
-SHARD_TASK = "workers.tasks.run_shard"
-FINALIZE_TASK = "workers.tasks.finalize_job"
+SHARD_TASK = "tuttiml.workers.tasks.run_shard"
+FINALIZE_TASK = "tuttiml.workers.tasks.finalize_job"
 #: The only functions a tutti worker will run (checked again on the worker side).
 ALLOWED_TASKS: frozenset[str] = frozenset({SHARD_TASK, FINALIZE_TASK})
 NO_EXPIRY = -1

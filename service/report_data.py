@@ -4,11 +4,11 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Any
 
-from service.spec import LOWER_IS_BETTER, Metric
-from service.version import __version__
+from tuttiml.service.spec import LOWER_IS_BETTER, Metric
+from tuttiml.service.version import __version__
 
 if TYPE_CHECKING:
-    from service.client import Job
+    from tuttiml.service.client import Job
 
 #: Relative gap between the honest estimate and the hold-out score that earns a warning.
 DISAGREE = 0.05

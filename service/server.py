@@ -18,8 +18,7 @@ from pathlib import Path
 from typing import Any
 
 import redis
-
-from service.errors import StoreUnavailableError
+from tuttiml.service.errors import StoreUnavailableError
 
 _SOCKET_MAX = 100  # sun_path is 108 bytes on Linux; keep a margin
 

@@ -14,8 +14,7 @@ from pydantic import (
     field_validator,
     model_validator,
 )
-
-from service.errors import InvalidSpecError
+from tuttiml.service.errors import InvalidSpecError
 
 SCHEMA_VERSION = 1
 

@@ -14,9 +14,8 @@ from collections.abc import Callable, Iterable
 from typing import Any
 
 import redis
-
-from service.errors import InvalidDataError, JobNotFoundError, JobStateError
-from service.keys import Keys, check_id
+from tuttiml.service.errors import InvalidDataError, JobNotFoundError, JobStateError
+from tuttiml.service.keys import Keys, check_id
 
 CHUNK_BYTES = 64 * 1024 * 1024  # one Redis string holds at most 512 MB
 LOG_LINES = 5000

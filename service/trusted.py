@@ -28,15 +28,27 @@ TRUSTED_TYPES: tuple[str, ...] = (
     "sklearn.neighbors._kd_tree.KDTree",
     "sklearn.neural_network._stochastic_optimizers.AdamOptimizer",
     "sklearn.tree._tree.Tree",
-    # tutti's own estimators (workers/ensembling.py, workers/combining.py)
-    "workers.combining.LinearCombinerClassifier",
-    "workers.combining.LinearCombinerRegressor",
-    "workers.ensembling.BlendingClassifier",
-    "workers.ensembling.BlendingRegressor",
-    "workers.ensembling.EarlyStoppingBoosterClassifier",
-    "workers.ensembling.EarlyStoppingBoosterRegressor",
-    "workers.ensembling.FrameNormalizer",
-    "workers.ensembling.RowCap",
+    # tutti's own estimators, at their one stable path (tuttiml/estimators.py)
+    *(
+        f"tuttiml.estimators.{name}"
+        for name in (
+            "BlendingClassifier",
+            "BlendingRegressor",
+            "EarlyStoppingBoosterClassifier",
+            "EarlyStoppingBoosterRegressor",
+            "FrameNormalizer",
+            "LinearCombinerClassifier",
+            "LinearCombinerRegressor",
+            "RowCap",
+        )
+    ),
 )
 
-__all__ = ["TRUSTED_TYPES"]
+# Module paths that files exported before the ``tuttiml`` namespace recorded, and where those
+# classes live now. Loading rewrites them (``service.artifacts``); nothing is imported from them.
+LEGACY_MODULES: dict[str, str] = {
+    "workers.ensembling": "tuttiml.estimators",
+    "workers.combining": "tuttiml.estimators",
+}
+
+__all__ = ["LEGACY_MODULES", "TRUSTED_TYPES"]

@@ -13,8 +13,8 @@ from typing import Any
 
 import pytest
 import redis
+from tuttiml.service.config import Settings
 
-from service.config import Settings
 from tests.redis_process import RedisProcess
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -48,7 +48,7 @@ def prefix(redis_url: str) -> Iterator[str]:
 
 @pytest.fixture
 def client(redis_url: str, prefix: str):  # type: ignore[no-untyped-def]
-    from service.client import Client
+    from tuttiml.service.client import Client
 
     c = Client(url=redis_url, prefix=prefix)
     yield c
@@ -80,9 +80,9 @@ def start_workers(
     ``DEFAULT_EXPLAIN`` back in ``env``.
     """
     if via_cli:
-        cmd = [sys.executable, "-m", "service.cli", "worker"]
+        cmd = [sys.executable, "-m", "tuttiml.service.cli", "worker"]
     else:
-        cmd = [sys.executable, "-m", "workers"]
+        cmd = [sys.executable, "-m", "tuttiml.workers"]
     cmd += ["--processes", str(processes), "--redis-url", url, "--prefix", prefix]
     if burst:
         cmd.append("--burst")

@@ -22,11 +22,16 @@ from sklearn.datasets import make_classification, make_regression
 from sklearn.exceptions import NotFittedError
 from sklearn.utils.validation import check_is_fitted
 from threadpoolctl import threadpool_limits
-
-from service.trusted import TRUSTED_TYPES
-from workers import metrics
-from workers.families import FAMILIES
-from workers.families._base import BINARY, MULTICLASS, REGRESSION, BaseFamily, FamilyContext
+from tuttiml.service.trusted import TRUSTED_TYPES
+from tuttiml.workers import metrics
+from tuttiml.workers.families import FAMILIES
+from tuttiml.workers.families._base import (
+    BINARY,
+    MULTICLASS,
+    REGRESSION,
+    BaseFamily,
+    FamilyContext,
+)
 
 TASKS = (BINARY, MULTICLASS, REGRESSION)
 N_ROWS, N_TRAIN = 160, 120

@@ -23,7 +23,7 @@ class RedisProcess:
     """A redis-server child on loopback with its own data directory (AOF on)."""
 
     def __init__(self, directory: Path, port: int | None = None, password: str | None = None):
-        from service.server import redis_server_binary
+        from tuttiml.service.server import redis_server_binary
 
         self.dir = directory
         self.port = port or free_port()

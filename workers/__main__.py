@@ -2,7 +2,7 @@
 
 import sys
 
-from workers.runner import main
+from tuttiml.workers.runner import main
 
 if __name__ == "__main__":
     sys.exit(main())

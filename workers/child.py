@@ -78,14 +78,14 @@ def _memory_limit(limit_mb: int | None):
 
 
 def _child_main(conn: Connection, threads: int) -> None:
-    from workers.runtime import die_with_parent, limit_threads, return_freed_memory
+    from tuttiml.workers.runtime import die_with_parent, limit_threads, return_freed_memory
 
     die_with_parent()
     return_freed_memory()
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the worker decides when we stop
     signal.signal(signal.SIGTERM, signal.SIG_IGN)  # a trial is never cut short by TERM
     limit_threads(threads)
-    from workers import trial_work  # heavy imports after the thread limits
+    from tuttiml.workers import trial_work  # heavy imports after the thread limits
 
     cache = trial_work.DataCache()
     while True:

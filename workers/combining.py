@@ -14,6 +14,9 @@ import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin, clone
 from sklearn.utils.validation import check_is_fitted
 
+# Exported files record this path (see tuttiml/estimators.py); keep it when moving code.
+STABLE_MODULE = "tuttiml.estimators"
+
 MODES = ("average", "logistic", "linear")
 
 
@@ -90,6 +93,8 @@ def combine_probas(
 class LinearCombinerClassifier(ClassifierMixin, _Combiner):
     """Members' class probabilities averaged with weights, or fed to a fitted logistic model."""
 
+    __module__ = STABLE_MODULE
+
     def fit(self, X: Any, y: Any) -> LinearCombinerClassifier:
         super().fit(X, y)
         self.classes_ = np.asarray(self.estimators_[0].classes_)
@@ -112,6 +117,8 @@ class LinearCombinerClassifier(ClassifierMixin, _Combiner):
 
 class LinearCombinerRegressor(RegressorMixin, _Combiner):
     """Members' predictions averaged with weights, or combined with fitted linear weights."""
+
+    __module__ = STABLE_MODULE
 
     def predict(self, X: Any) -> np.ndarray:
         check_is_fitted(self)

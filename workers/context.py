@@ -7,11 +7,11 @@ import socket
 import threading
 from dataclasses import dataclass, field
 
-from service.config import Settings
-from service.connection import connect
-from service.queue import TaskQueue
-from service.store import JobStore
-from workers.child import TrialProcess
+from tuttiml.service.config import Settings
+from tuttiml.service.connection import connect
+from tuttiml.service.queue import TaskQueue
+from tuttiml.service.store import JobStore
+from tuttiml.workers.child import TrialProcess
 
 
 @dataclass
@@ -32,7 +32,7 @@ class WorkerContext:
     def create(
         cls, settings: Settings, url: str, *, name: str | None = None, threads: int = 1
     ) -> WorkerContext:
-        from service.keys import Keys
+        from tuttiml.service.keys import Keys
 
         client = connect(url)
         keys = Keys(settings.prefix)
@@ -63,7 +63,7 @@ def current() -> WorkerContext:
     """The process's context; built from the environment when no launcher installed one."""
     global _CURRENT
     if _CURRENT is None:
-        from service.connection import resolve_url
+        from tuttiml.service.connection import resolve_url
 
         settings = Settings.from_env()
         _CURRENT = WorkerContext.create(settings, resolve_url(settings))

@@ -21,9 +21,8 @@ from sklearn.model_selection import (
     StratifiedKFold,
     train_test_split,
 )
-
-from service.spec import Metric, SearchSpec, Task
-from workers.families._base import FamilyContext
+from tuttiml.service.spec import Metric, SearchSpec, Task
+from tuttiml.workers.families._base import FamilyContext
 
 PRE_BLOCK = -1
 HOLDOUT = -2

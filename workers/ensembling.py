@@ -32,8 +32,10 @@ from sklearn.utils import Bunch, check_random_state, get_tags
 from sklearn.utils.metaestimators import available_if
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
+from tuttiml.workers._sklearn_compat import NamedEstimatorsBase, pandas_module, take_rows
 
-from workers._sklearn_compat import NamedEstimatorsBase, pandas_module, take_rows
+# Exported files record this path (see tuttiml/estimators.py); keep it when moving code.
+STABLE_MODULE = "tuttiml.estimators"
 
 NUMERIC = "numeric"
 CATEGORICAL = "categorical"
@@ -242,6 +244,8 @@ class BlendingClassifier(ClassifierMixin, _BlendingBase):
         random_state: seed of the hold-out split.
     """
 
+    __module__ = STABLE_MODULE
+
     def _default_final_estimator(self) -> Any:
         return LogisticRegression()
 
@@ -293,6 +297,8 @@ class BlendingRegressor(RegressorMixin, _BlendingBase):
         holdout_fraction: share of the training rows held out for the meta-model, in (0, 1).
         random_state: seed of the hold-out split.
     """
+
+    __module__ = STABLE_MODULE
 
     def _default_final_estimator(self) -> Any:
         return RidgeCV()
@@ -455,6 +461,8 @@ class EarlyStoppingBooster(BaseEstimator):
 class EarlyStoppingBoosterClassifier(ClassifierMixin, EarlyStoppingBooster):
     """:class:`EarlyStoppingBooster` around an ``LGBMClassifier`` (stratified validation)."""
 
+    __module__ = STABLE_MODULE
+
     _lgbm_class = lightgbm.LGBMClassifier
 
     def fit(self, X: Any, y: Any) -> EarlyStoppingBoosterClassifier:
@@ -475,6 +483,8 @@ class EarlyStoppingBoosterClassifier(ClassifierMixin, EarlyStoppingBooster):
 
 class EarlyStoppingBoosterRegressor(RegressorMixin, EarlyStoppingBooster):
     """:class:`EarlyStoppingBooster` around an ``LGBMRegressor``."""
+
+    __module__ = STABLE_MODULE
 
     _lgbm_class = lightgbm.LGBMRegressor
 
@@ -582,6 +592,8 @@ class RowCap(BaseEstimator):
         random_state: seed of the subsample.
     """
 
+    __module__ = STABLE_MODULE
+
     def __init__(self, estimator: Any, *, max_rows: int = 5000, random_state: int | None = None):
         self.estimator = estimator
         self.max_rows = max_rows
@@ -680,6 +692,8 @@ class FrameNormalizer(TransformerMixin, BaseEstimator):
     Raises (at transform):
         ValueError: schema columns are missing, or a numeric column holds non-numbers.
     """
+
+    __module__ = STABLE_MODULE
 
     def __init__(self, schema: dict[str, str] | None = None) -> None:
         self.schema = schema

@@ -9,10 +9,9 @@ from typing import Any
 
 import numpy as np
 from sklearn.base import clone
-
-from service.spec import Metric
-from workers import metrics
-from workers.datasets import Dataset
+from tuttiml.service.spec import Metric
+from tuttiml.workers import metrics
+from tuttiml.workers.datasets import Dataset
 
 LATENCY_ROWS = 1000
 

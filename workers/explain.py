@@ -22,15 +22,14 @@ import pandas as pd
 from sklearn.base import clone
 from sklearn.model_selection import cross_val_predict
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
-
-from service.spec import Metric
-from workers import metrics
-from workers.biasvar import bias_variance, holdout_split
-from workers.datasets import Dataset
-from workers.diagnostics import ensemble_gain, error_correlation
-from workers.evaluation import cross_validate
-from workers.families import get_family
-from workers.honesty import bbc_cv, corrected_resampled_ttest, repeated_kfold_indices
+from tuttiml.service.spec import Metric
+from tuttiml.workers import metrics
+from tuttiml.workers.biasvar import bias_variance, holdout_split
+from tuttiml.workers.datasets import Dataset
+from tuttiml.workers.diagnostics import ensemble_gain, error_correlation
+from tuttiml.workers.evaluation import cross_validate
+from tuttiml.workers.families import get_family
+from tuttiml.workers.honesty import bbc_cv, corrected_resampled_ttest, repeated_kfold_indices
 
 TOP_N = 5
 REPEATS = 2
@@ -72,7 +71,7 @@ def honest_winner(members: dict[int, np.ndarray], data: Dataset, metric: Metric)
 
 
 def _build(member: dict[str, Any], data: Dataset, seed: int) -> Any:
-    from workers.trial_work import build_candidate
+    from tuttiml.workers.trial_work import build_candidate
 
     return build_candidate(
         get_family(member["family"]), dict(member["params"]), data.context(seed)

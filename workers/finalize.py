@@ -16,11 +16,11 @@ import time
 from collections.abc import Iterable
 from typing import Any
 
-from service.spec import LOWER_IS_BETTER, SearchSpec
-from service.store import JobState
-from service.trusted import TRUSTED_TYPES
-from workers.child import ChildFailure, TrialCrashed
-from workers.context import WorkerContext
+from tuttiml.service.spec import LOWER_IS_BETTER, SearchSpec
+from tuttiml.service.store import JobState
+from tuttiml.service.trusted import TRUSTED_TYPES
+from tuttiml.workers.child import ChildFailure, TrialCrashed
+from tuttiml.workers.context import WorkerContext
 
 log = logging.getLogger(__name__)
 REFIT_TRIES = 3
@@ -35,8 +35,7 @@ def versions() -> dict[str, str]:
     import numpy
     import sklearn
     import skops
-
-    from service.version import __version__
+    from tuttiml.service.version import __version__
 
     return {
         "tutti": __version__,
@@ -193,7 +192,7 @@ class Finalizer:
         artifacts: dict[str, tuple[bytes, dict[str, Any]]],
     ) -> list[dict[str, Any]]:
         """Score vs predict latency front; its best few members are refitted too."""
-        from workers.diagnostics import pareto_front
+        from tuttiml.workers.diagnostics import pareto_front
 
         rows = self.store.board(self.job_id)
         points = [

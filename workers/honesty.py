@@ -15,9 +15,8 @@ from typing import Any
 import numpy as np
 from scipy import stats
 from sklearn.model_selection import RepeatedKFold, RepeatedStratifiedKFold
-
-from service.spec import Metric
-from workers import metrics
+from tuttiml.service.spec import Metric
+from tuttiml.workers import metrics
 
 #: Mixed into the caller's seed so re-evaluation folds never coincide with the search folds.
 _FRESH_SEED_TAG = 0x7E57

@@ -45,10 +45,9 @@ from typing import Any
 
 import numpy as np
 from sklearn.linear_model import LinearRegression, LogisticRegression
-
-from service.spec import Metric
-from workers import metrics
-from workers.honesty import scores_on_rows
+from tuttiml.service.spec import Metric
+from tuttiml.workers import metrics
+from tuttiml.workers.honesty import scores_on_rows
 
 REGRESSION = "regression"
 METHODS: tuple[str, ...] = ("selection", "meta")

@@ -11,8 +11,7 @@ from collections.abc import Callable
 
 import numpy as np
 from sklearn import metrics as skm
-
-from service.spec import LOWER_IS_BETTER, Metric
+from tuttiml.service.spec import LOWER_IS_BETTER, Metric
 
 _EPS = 1e-15
 

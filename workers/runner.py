@@ -44,8 +44,7 @@ class WorkerOptions:
 
 def _make_worker_class() -> type:
     from rq.worker import SimpleWorker
-
-    from service.queue import ALLOWED_TASKS
+    from tuttiml.service.queue import ALLOWED_TASKS
 
     class TuttiWorker(SimpleWorker):
         """RQ's in-process worker that runs only our allow-listed task functions."""
@@ -78,7 +77,7 @@ def _make_worker_class() -> type:
 
 
 def _active_jobs(ctx: Any) -> bool:
-    from service.store import JobState
+    from tuttiml.service.store import JobState
 
     for job_id in ctx.store.job_ids():
         with contextlib.suppress(Exception):
@@ -95,7 +94,7 @@ def _active_jobs(ctx: Any) -> bool:
 def worker_main(opts: dict[str, Any]) -> None:
     """Body of one worker process."""
     o = WorkerOptions(**opts)
-    from workers.runtime import die_with_parent, limit_threads
+    from tuttiml.workers.runtime import die_with_parent, limit_threads
 
     die_with_parent(signal.SIGKILL)
     limit_threads(o.threads)
@@ -104,13 +103,12 @@ def worker_main(opts: dict[str, Any]) -> None:
     import lightgbm  # noqa: F401
     import optuna  # noqa: F401
     import sklearn.ensemble  # noqa: F401
-
-    import workers.finalize
-    import workers.search  # noqa: F401
-    from service.config import Settings
-    from service.connection import resolve_url
-    from workers.context import WorkerContext, install
-    from workers.sweep import sweep
+    import tuttiml.workers.finalize
+    import tuttiml.workers.search  # noqa: F401
+    from tuttiml.service.config import Settings
+    from tuttiml.service.connection import resolve_url
+    from tuttiml.workers.context import WorkerContext, install
+    from tuttiml.workers.sweep import sweep
 
     settings = Settings.from_env(
         redis_url=o.url,
@@ -231,7 +229,7 @@ def plan(processes: int | None, cores: int | None, threads: int) -> tuple[int, i
 
 def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
     """Start the worker processes and supervise them until they exit or a signal arrives."""
-    from workers.runtime import limit_threads
+    from tuttiml.workers.runtime import limit_threads
 
     processes, threads = plan(args.processes, args.cores, args.threads)
     limit_threads(threads)

@@ -21,17 +21,16 @@ from typing import Any
 import numpy as np
 import optuna
 from optuna.trial import TrialState
-
-from service.spec import Metric, SearchSpec
-from service.store import JobState
-from workers.child import ChildFailure, TrialCrashed
-from workers.context import WorkerContext
-from workers.datasets import family_context
-from workers.families import get_family
-from workers.families._base import FamilyContext
-from workers.finalize import refit_seconds
-from workers.journal import journal_storage
-from workers.trial_work import oof_bytes
+from tuttiml.service.spec import Metric, SearchSpec
+from tuttiml.service.store import JobState
+from tuttiml.workers.child import ChildFailure, TrialCrashed
+from tuttiml.workers.context import WorkerContext
+from tuttiml.workers.datasets import family_context
+from tuttiml.workers.families import get_family
+from tuttiml.workers.families._base import FamilyContext
+from tuttiml.workers.finalize import refit_seconds
+from tuttiml.workers.journal import journal_storage
+from tuttiml.workers.trial_work import oof_bytes
 
 log = logging.getLogger(__name__)
 optuna.logging.set_verbosity(optuna.logging.WARNING)

@@ -10,8 +10,8 @@ from __future__ import annotations
 import logging
 import time
 
-from service.store import JobState
-from workers.context import WorkerContext
+from tuttiml.service.store import JobState
+from tuttiml.workers.context import WorkerContext
 
 log = logging.getLogger(__name__)
 FINALIZE_SHARD = -1

@@ -10,8 +10,8 @@ import contextlib
 import logging
 import traceback
 
-from service.keys import check_id
-from workers.context import current
+from tuttiml.service.keys import check_id
+from tuttiml.workers.context import current
 
 log = logging.getLogger(__name__)
 MAX_SHARD_ERRORS = 20
@@ -25,14 +25,14 @@ def _shard_id(shard: object) -> int:
 
 def run_shard(job_id: str, shard: int) -> str:
     """Run one search slice of ``job_id``; returns why the slice ended."""
-    from workers.search import Shard
+    from tuttiml.workers.search import Shard
 
     job_id, shard = check_id(job_id), _shard_id(shard)
     ctx = current()
     if not ctx.store.exists(job_id):
         return "no such job"  # deleted while queued, or forged: write nothing
     lease_key = ctx.store.keys.shard_lease(job_id, shard)
-    from workers.search import Lease
+    from tuttiml.workers.search import Lease
 
     with Lease(ctx, lease_key, ctx.settings.lease_seconds):
         try:
@@ -60,8 +60,8 @@ def _shard_crashed(job_id: str, shard: int, exc: Exception) -> str:
 
 def finalize_job(job_id: str) -> str:
     """Build library ensembles, refit the winner and commit the job's result (exactly once)."""
-    from workers.finalize import Finalizer
-    from workers.search import Lease
+    from tuttiml.workers.finalize import Finalizer
+    from tuttiml.workers.search import Lease
 
     job_id = check_id(job_id)
     ctx = current()

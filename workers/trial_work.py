@@ -18,16 +18,15 @@ from typing import Any
 
 import numpy as np
 from sklearn.pipeline import Pipeline
-
-from service.connection import connect
-from service.data import parquet_table, table_frame
-from service.keys import Keys
-from service.spec import Metric, SearchSpec
-from service.store import JobStore
-from workers import combining, ensembling, metrics
-from workers.datasets import Dataset, build_dataset
-from workers.evaluation import Pruned, cross_validate
-from workers.families import get_family
+from tuttiml.service.connection import connect
+from tuttiml.service.data import parquet_table, table_frame
+from tuttiml.service.keys import Keys
+from tuttiml.service.spec import Metric, SearchSpec
+from tuttiml.service.store import JobStore
+from tuttiml.workers import combining, ensembling, metrics
+from tuttiml.workers.datasets import Dataset, build_dataset
+from tuttiml.workers.evaluation import Pruned, cross_validate
+from tuttiml.workers.families import get_family
 
 
 @dataclass
@@ -310,8 +309,8 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
 
 def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
     """Library ensembles over the kept out-of-fold predictions (no fold fits), scored honestly."""
-    from workers.honesty import selection_optimism
-    from workers.library import build_library_ensembles
+    from tuttiml.workers.honesty import selection_optimism
+    from tuttiml.workers.library import build_library_ensembles
 
     entry = cache.get(request)
     data = entry.data
@@ -369,7 +368,7 @@ def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
 
 def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     """Honest estimate, significance, bias/variance, diagnostics and leakage (time-bounded)."""
-    from workers import explain as ex
+    from tuttiml.workers import explain as ex
 
     entry = cache.get(request)
     data, metric = entry.data, Metric(entry.spec.metric)

@@ -22,10 +22,15 @@ import redis
 import rq
 from rq.job import Job as RQJob
 from sklearn.datasets import load_breast_cancer
+from tuttiml.service.client import Client, Job
+from tuttiml.service.errors import (
+    ArtifactError,
+    InvalidDataError,
+    InvalidSpecError,
+    JobNotFoundError,
+)
+from tuttiml.service.spec import SearchSpec
 
-from service.client import Client, Job
-from service.errors import ArtifactError, InvalidDataError, InvalidSpecError, JobNotFoundError
-from service.spec import SearchSpec
 from tests.conftest import ROOT, start_workers
 
 pytestmark = pytest.mark.integration
@@ -207,7 +212,16 @@ def test_best_pipeline_before_the_job_finished(
 def _cli(args: list[str], redis_url: str, prefix: str, cwd: Path) -> subprocess.CompletedProcess:  # type: ignore[type-arg]
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
     return subprocess.run(
-        [sys.executable, "-m", "service.cli", "--redis-url", redis_url, "--prefix", prefix, *args],
+        [
+            sys.executable,
+            "-m",
+            "tuttiml.service.cli",
+            "--redis-url",
+            redis_url,
+            "--prefix",
+            prefix,
+            *args,
+        ],
         cwd=cwd,
         env=env,
         capture_output=True,
@@ -299,9 +313,9 @@ def test_bad_input_never_reaches_or_crashes_a_running_worker(
     conn = redis.Redis.from_url(redis_url)
     forged_queue = rq.Queue(client.keys.queue_name, connection=conn, serializer="json")
     forged = [
-        forged_queue.enqueue("workers.tasks.run_shard", "a:b", 0),
-        forged_queue.enqueue("workers.tasks.run_shard", job.id, "zero"),
-        forged_queue.enqueue("workers.tasks.finalize_job", "../../etc"),
+        forged_queue.enqueue("tuttiml.workers.tasks.run_shard", "a:b", 0),
+        forged_queue.enqueue("tuttiml.workers.tasks.run_shard", job.id, "zero"),
+        forged_queue.enqueue("tuttiml.workers.tasks.finalize_job", "../../etc"),
     ]
     log = tmp_path / "workers.log"
     proc = start_workers(redis_url, prefix, 1, log=log, env={"TUTTI_SHARD_SECONDS": "8"})
@@ -349,7 +363,7 @@ def test_a_shard_of_a_deleted_job_leaves_nothing_behind(
     )  # fmt: skip
     conn = redis.Redis.from_url(redis_url)
     rq.Queue(client.keys.queue_name, connection=conn, serializer="json").enqueue(
-        "workers.tasks.run_shard", "ghost", 0
+        "tuttiml.workers.tasks.run_shard", "ghost", 0
     )
     log = tmp_path / "workers.log"
     proc = start_workers(redis_url, prefix, 1, log=log, env={"TUTTI_SHARD_SECONDS": "8"})

@@ -91,7 +91,7 @@ def test_two_workers_search_breast_cancer(
         [
             sys.executable,
             "-m",
-            "service.cli",
+            "tuttiml.service.cli",
             "predict",
             str(out),
             str(csv),
@@ -109,7 +109,7 @@ def test_two_workers_search_breast_cancer(
 
 
 def test_two_clients_on_one_store_see_the_same_jobs(redis_url: str, prefix: str) -> None:
-    from service.client import Client
+    from tuttiml.service.client import Client
 
     a, b = Client(url=redis_url, prefix=prefix), Client(url=redis_url, prefix=prefix)
     job = a.submit(_breast_cancer(), target="benign", max_trials=3)

@@ -20,11 +20,11 @@ import pytest
 import redis
 from optuna.trial import TrialState
 from sklearn.datasets import load_breast_cancer
+from tuttiml.service.client import Client
+from tuttiml.workers.journal import journal_storage
+from tuttiml.workers.search import MAX_RETRIES
 
-from service.client import Client
 from tests.conftest import DEFAULT_EXPLAIN, RedisProcess, start_workers
-from workers.journal import journal_storage
-from workers.search import MAX_RETRIES
 
 pytestmark = pytest.mark.integration
 FAST = {"TUTTI_LEASE_SECONDS": "3", "TUTTI_SHARD_SECONDS": "10"}

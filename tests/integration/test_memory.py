@@ -5,8 +5,7 @@ from __future__ import annotations
 import psutil
 import pytest
 from sklearn.datasets import load_breast_cancer
-
-from workers.child import TrialProcess
+from tuttiml.workers.child import TrialProcess
 
 pytestmark = [pytest.mark.integration, pytest.mark.slow]
 

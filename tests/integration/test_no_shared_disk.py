@@ -47,7 +47,7 @@ def test_workers_and_client_share_only_a_tcp_redis(tmp_path: Path) -> None:
             [
                 sys.executable,
                 "-m",
-                "service.cli",
+                "tuttiml.service.cli",
                 "--redis-url",
                 url,
                 "--prefix",
@@ -83,7 +83,7 @@ def test_workers_and_client_share_only_a_tcp_redis(tmp_path: Path) -> None:
                     [
                         sys.executable,
                         "-m",
-                        "service.cli",
+                        "tuttiml.service.cli",
                         "--prefix",
                         prefix,
                         "worker",
@@ -104,7 +104,7 @@ def test_workers_and_client_share_only_a_tcp_redis(tmp_path: Path) -> None:
             [
                 sys.executable,
                 "-m",
-                "service.cli",
+                "tuttiml.service.cli",
                 "--redis-url",
                 url,
                 "--prefix",
@@ -125,7 +125,7 @@ def test_workers_and_client_share_only_a_tcp_redis(tmp_path: Path) -> None:
             [
                 sys.executable,
                 "-m",
-                "service.cli",
+                "tuttiml.service.cli",
                 "--redis-url",
                 url,
                 "--prefix",

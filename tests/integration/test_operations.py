@@ -9,14 +9,14 @@ import pytest
 import redis
 from optuna.trial import TrialState
 from sklearn.datasets import load_iris
+from tuttiml.service.config import Settings
+from tuttiml.service.doctor import PROBLEM, diagnose
+from tuttiml.service.store import JobState
+from tuttiml.workers.context import WorkerContext
+from tuttiml.workers.search import MAX_RETRIES, Shard, open_study
+from tuttiml.workers.sweep import sweep
 
-from service.config import Settings
-from service.doctor import PROBLEM, diagnose
-from service.store import JobState
 from tests.conftest import RedisProcess
-from workers.context import WorkerContext
-from workers.search import MAX_RETRIES, Shard, open_study
-from workers.sweep import sweep
 
 pytestmark = pytest.mark.integration
 
@@ -73,7 +73,9 @@ def test_sweep_re_enqueues_the_finalize_of_a_dead_worker(
     time.sleep(1.1)
     assert sweep(ctx) == 1  # still nothing running or queued a lease period later
     queued = client.queue.final.get_jobs()
-    assert [(q.func_name, q.args) for q in queued] == [("workers.tasks.finalize_job", [job.id])]
+    assert [(q.func_name, q.args) for q in queued] == [
+        ("tuttiml.workers.tasks.finalize_job", [job.id])
+    ]
 
 
 def test_jobs_queue_in_submission_order_and_high_priority_jumps_ahead(client) -> None:  # type: ignore[no-untyped-def]

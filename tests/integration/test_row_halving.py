@@ -10,8 +10,8 @@ from pathlib import Path
 
 import pytest
 from sklearn.datasets import load_breast_cancer
+from tuttiml.service.client import Client
 
-from service.client import Client
 from tests.conftest import run_to_end
 
 pytestmark = pytest.mark.integration

@@ -26,10 +26,10 @@ import redis
 import rq
 from rq.job import Job as RQJob
 from sklearn.datasets import load_breast_cancer
+from tuttiml.service.client import Client
+from tuttiml.service.errors import ArtifactError
+from tuttiml.service.trusted import TRUSTED_TYPES
 
-from service.client import Client
-from service.errors import ArtifactError
-from service.trusted import TRUSTED_TYPES
 from tests.conftest import ROOT, RedisProcess, start_workers
 
 pytestmark = pytest.mark.integration
@@ -121,7 +121,7 @@ def test_forged_json_job_is_refused_by_the_allow_list(
     result = fetched.latest_result()
     exc_text = (result.exc_string if result is not None else None) or str(fetched.exc_info)
     assert "PermissionError" in exc_text and "refused task 'os.system'" in exc_text, exc_text
-    assert "tutti workers run only workers.tasks.finalize_job" in exc_text
+    assert "tutti workers run only tuttiml.workers.tasks.finalize_job" in exc_text
     assert "refused forged or foreign task 'os.system'" in log.read_text()
     assert job.best_pipeline() is not None
 
@@ -136,7 +136,7 @@ def test_forged_pickle_jobs_are_never_unpickled(
     # (a) a call of os.system itself; (b) an allowed task name whose argument runs code when
     # unpickled, so a worker that unpickled before checking the name would already be lost
     by_func = pickled.enqueue(os.system, f"touch {marker_func}")
-    by_arg = pickled.enqueue("workers.tasks.run_shard", _TouchOnUnpickle(marker_arg), 0)
+    by_arg = pickled.enqueue("tuttiml.workers.tasks.run_shard", _TouchOnUnpickle(marker_arg), 0)
     log = tmp_path / "workers.log"
     job, proc = _run_small_job_with_worker(client, redis_url, prefix, log)
 
@@ -344,7 +344,7 @@ def test_corrupted_artifacts_fail_the_sha256_check(
 
     def predict(extra_env: dict[str, str] | None = None) -> subprocess.CompletedProcess[str]:
         return subprocess.run(
-            [sys.executable, "-m", "service.cli", "predict", str(model_path), str(csv)],
+            [sys.executable, "-m", "tuttiml.service.cli", "predict", str(model_path), str(csv)],
             cwd=ROOT,
             env={**env, **(extra_env or {})},
             capture_output=True,
@@ -404,7 +404,7 @@ def test_wrong_password_gets_a_prompt_clear_error(tmp_path: Path) -> None:
         started = time.monotonic()
         try:
             res = subprocess.run(
-                [sys.executable, "-m", "service.cli", "--redis-url", wrong, "status"],
+                [sys.executable, "-m", "tuttiml.service.cli", "--redis-url", wrong, "status"],
                 cwd=ROOT,
                 env=env,
                 capture_output=True,

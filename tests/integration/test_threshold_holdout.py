@@ -10,8 +10,8 @@ import pytest
 from sklearn.datasets import load_breast_cancer
 from sklearn.metrics import f1_score
 from sklearn.model_selection import train_test_split
+from tuttiml.service.client import Client
 
-from service.client import Client
 from tests.conftest import run_to_end
 
 pytestmark = pytest.mark.integration

@@ -6,8 +6,8 @@ from pathlib import Path
 
 import pytest
 from sklearn.datasets import load_wine
+from tuttiml.service.spec import KNOWN_FAMILIES
 
-from service.spec import KNOWN_FAMILIES
 from tests.conftest import DEFAULT_EXPLAIN, start_workers
 
 pytestmark = [pytest.mark.integration, pytest.mark.slow]

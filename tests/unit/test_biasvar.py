@@ -9,8 +9,7 @@ from mlxtend.evaluate import bias_variance_decomp
 from sklearn.datasets import load_diabetes, load_wine, make_classification
 from sklearn.ensemble import BaggingClassifier
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
-
-from workers.biasvar import bias_variance, holdout_split
+from tuttiml.workers.biasvar import bias_variance, holdout_split
 
 
 def _split(X: np.ndarray, y: np.ndarray, task: str, seed: int = 0) -> tuple[np.ndarray, ...]:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import io
 
-from service.cli import BAR_MIN_BYTES, _upload_bar
+from tuttiml.service.cli import BAR_MIN_BYTES, _upload_bar
 
 
 def test_large_uploads_report_each_quarter_once_off_a_terminal() -> None:

@@ -3,8 +3,7 @@
 from __future__ import annotations
 
 import pytest
-
-from service.config import Settings
+from tuttiml.service.config import Settings
 
 
 def test_explain_time_bounds_are_read_from_the_environment(

@@ -14,8 +14,7 @@ import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-
-from service.data import (
+from tuttiml.service.data import (
     HIGH_CARDINALITY,
     check_size,
     decode,
@@ -26,8 +25,8 @@ from service.data import (
     read_table,
     summary,
 )
-from service.errors import EnsembleSearchError, InvalidDataError, InvalidSpecError
-from service.spec import Metric, SearchSpec, Task
+from tuttiml.service.errors import EnsembleSearchError, InvalidDataError, InvalidSpecError
+from tuttiml.service.spec import Metric, SearchSpec, Task
 
 N = 120
 

@@ -6,8 +6,12 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
-from workers.diagnostics import disagreement, ensemble_gain, error_correlation, pareto_front
+from tuttiml.workers.diagnostics import (
+    disagreement,
+    ensemble_gain,
+    error_correlation,
+    pareto_front,
+)
 
 
 def _proba(rng: np.random.Generator, n: int, k: int) -> np.ndarray:

@@ -12,9 +12,8 @@ from sklearn.linear_model import LinearRegression, LogisticRegression, Ridge
 from sklearn.naive_bayes import GaussianNB
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
 from sklearn.utils.estimator_checks import parametrize_with_checks
-
-from service.trusted import TRUSTED_TYPES
-from workers.ensembling import (
+from tuttiml.service.trusted import TRUSTED_TYPES
+from tuttiml.workers.ensembling import (
     BlendingClassifier,
     BlendingRegressor,
     EarlyStoppingBoosterClassifier,

@@ -15,24 +15,24 @@ from sklearn.linear_model import LogisticRegression, Ridge
 from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict, train_test_split
 from sklearn.pipeline import Pipeline
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
-
-from service.errors import InvalidSpecError
-from service.spec import KNOWN_FAMILIES
-from tests.contracts import N_TRAIN, FamilyContract, family_data
-from workers.ensembling import (
+from tuttiml.service.errors import InvalidSpecError
+from tuttiml.service.spec import KNOWN_FAMILIES
+from tuttiml.workers.ensembling import (
     BlendingClassifier,
     EarlyStoppingBoosterClassifier,
     FrameNormalizer,
     best_iterations,
     refit_rounds,
 )
-from workers.families import FAMILIES, get_family
-from workers.families._learners import (
+from tuttiml.workers.families import FAMILIES, get_family
+from tuttiml.workers.families._learners import (
     LEARNERS,
     default_members,
     learner_names,
     make_preprocessor,
 )
+
+from tests.contracts import N_TRAIN, FamilyContract, family_data
 
 
 class TestSingleFamily(FamilyContract):
@@ -374,8 +374,7 @@ def test_calibration_leaves_a_hard_vote_as_it_is() -> None:
     CalibratedClassifierCV to calibrate (scikit-learn refuses it); the candidate is built and
     scored uncalibrated instead of failing the trial."""
     from sklearn.calibration import CalibratedClassifierCV
-
-    from workers.trial_work import build_candidate
+    from tuttiml.workers.trial_work import build_candidate
 
     X, y, ctx = family_data("multiclass")
     fam = get_family("voting")
@@ -394,8 +393,7 @@ def test_hard_votes_only_where_labels_can_compete() -> None:
     import dataclasses
 
     import optuna
-
-    from workers.datasets import PROBABILITY_METRICS
+    from tuttiml.workers.datasets import PROBABILITY_METRICS
 
     assert {"log_loss", "roc_auc"} == PROBABILITY_METRICS
     _, _, ctx = family_data("multiclass")
@@ -415,10 +413,9 @@ def test_worker_and_trial_process_build_the_same_context(metric: str) -> None:
     table; both must see the same context, or a suggested candidate would differ from the
     one scored."""
     from sklearn.datasets import load_breast_cancer
-
-    from service.spec import SearchSpec, Task
-    from workers.datasets import build_dataset
-    from workers.search import context_from_record
+    from tuttiml.service.spec import SearchSpec, Task
+    from tuttiml.workers.datasets import build_dataset
+    from tuttiml.workers.search import context_from_record
 
     frame = load_breast_cancer(as_frame=True).frame  # scikit-learn bundled (UCI WDBC)
     frame.columns = [c.replace(" ", "_") for c in frame.columns]
@@ -442,7 +439,7 @@ def test_default_trials_run_cheapest_first(task: str) -> None:
     """Every family's defaults are enqueued exactly once, ordered by estimated cost: the
     single learners before the composites, and the stack (inner CV: cv + 1 fits of each
     member) last."""
-    from workers.search import default_trials
+    from tuttiml.workers.search import default_trials
 
     _, _, ctx = family_data(task)
     order = default_trials(KNOWN_FAMILIES, ctx)

@@ -4,9 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-
-from service.spec import SearchSpec
-from workers.datasets import HOLDOUT, PRE_BLOCK, assign_folds
+from tuttiml.service.spec import SearchSpec
+from tuttiml.workers.datasets import HOLDOUT, PRE_BLOCK, assign_folds
 
 
 def _frame(n: int = 300) -> tuple[pd.DataFrame, np.ndarray]:

@@ -8,9 +8,8 @@ import time
 import numpy as np
 import pytest
 from scipy import stats
-
-from workers import honesty, metrics
-from workers.honesty import (
+from tuttiml.workers import honesty, metrics
+from tuttiml.workers.honesty import (
     bbc_cv,
     bootstrap_counts,
     corrected_resampled_ttest,

@@ -5,8 +5,7 @@ from __future__ import annotations
 import optuna
 import redis
 from optuna.storages.journal._base import BaseJournalSnapshot
-
-from workers.journal import READ_BATCH, RedisListJournal, journal_storage
+from tuttiml.workers.journal import READ_BATCH, RedisListJournal, journal_storage
 
 
 def test_appends_and_batched_reads(redis_url: str, prefix: str) -> None:

@@ -4,8 +4,7 @@ from __future__ import annotations
 
 from hypothesis import given
 from hypothesis import strategies as st
-
-from service.keys import Keys
+from tuttiml.service.keys import Keys
 
 
 def test_key_schema_is_pinned() -> None:

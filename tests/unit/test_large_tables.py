@@ -10,11 +10,10 @@ from sklearn.linear_model import LogisticRegression
 from sklearn.metrics import roc_auc_score
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
-
-from service.data import decode, encode, normalize_frame
-from service.spec import Metric, SearchSpec
-from workers.datasets import Dataset, build_dataset, float32_if_exact
-from workers.evaluation import Pruned, cross_validate
+from tuttiml.service.data import decode, encode, normalize_frame
+from tuttiml.service.spec import Metric, SearchSpec
+from tuttiml.workers.datasets import Dataset, build_dataset, float32_if_exact
+from tuttiml.workers.evaluation import Pruned, cross_validate
 
 
 def test_ordinary_features_narrow_to_float32() -> None:
@@ -123,9 +122,8 @@ def test_stacking_on_many_rows_fits_on_a_capped_subsample(monkeypatch: pytest.Mo
     """Above STACK_ROW_CAP training rows the whole stack (inner CV included) sees a stratified
     subsample; below it the stack is scikit-learn's StackingClassifier as it is."""
     from sklearn.ensemble import StackingClassifier
-
-    from workers.families import get_family, stacking
-    from workers.families._base import FamilyContext
+    from tuttiml.workers.families import get_family, stacking
+    from tuttiml.workers.families._base import FamilyContext
 
     frame = _breast_cancer()
     X, y = frame.drop(columns="target"), frame["target"].to_numpy()

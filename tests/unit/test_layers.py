@@ -11,28 +11,109 @@ import pytest
 
 ROOT = Path(__file__).resolve().parents[2]
 STDLIB = set(sys.stdlib_module_names)
+NS = "tuttiml"
+WINGS = {"service": ROOT / "service", "workers": ROOT / "workers", NS: ROOT / NS}
+
+
+def _module_name(path: Path) -> str:
+    """The dotted name ``path`` installs under (``service/x.py`` -> ``tuttiml.service.x``)."""
+    for wing, folder in WINGS.items():
+        if path.is_relative_to(folder):
+            parts = list(path.relative_to(folder).with_suffix("").parts)
+            head = [NS] if wing == NS else [NS, wing]
+            if parts[-1] == "__init__":
+                parts = parts[:-1]
+            return ".".join(head + parts)
+    raise ValueError(path)
+
+
+def _is_type_checking(node: ast.If) -> bool:
+    test = node.test
+    return (isinstance(test, ast.Name) and test.id == "TYPE_CHECKING") or (
+        isinstance(test, ast.Attribute) and test.attr == "TYPE_CHECKING"
+    )
+
+
+def _absolute(node: ast.ImportFrom, here: str, is_package: bool) -> str:
+    if node.level == 0:
+        return node.module or ""
+    base = here.split(".") if is_package else here.split(".")[:-1]
+    base = base[: len(base) - (node.level - 1)]
+    return ".".join(base + ([node.module] if node.module else []))
 
 
 def _imports(path: Path, *, top_level_only: bool = False) -> set[str]:
-    tree = ast.parse(path.read_text())
-    nodes = tree.body if top_level_only else list(ast.walk(tree))
+    """Every module ``path`` imports, relative imports resolved.
+
+    With ``top_level_only`` the imports that run when the module is imported: the module body,
+    ``try``/``with`` blocks and ``if`` blocks other than ``if TYPE_CHECKING:``, but not
+    function or class bodies.
+    """
+    here = _module_name(path)
+    is_package = path.stem == "__init__"
     out: set[str] = set()
-    for node in nodes:
-        if isinstance(node, ast.Import):
-            out.update(a.name for a in node.names)
-        elif isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
-            out.add(node.module)
-        elif isinstance(node, ast.If):  # `if TYPE_CHECKING:` blocks are not runtime imports
-            continue
+
+    def visit(nodes: list[ast.stmt], nested: bool) -> None:
+        for node in nodes:
+            if isinstance(node, ast.Import):
+                out.update(a.name for a in node.names)
+            elif isinstance(node, ast.ImportFrom):
+                out.add(_absolute(node, here, is_package))
+            elif isinstance(node, ast.If):
+                if not _is_type_checking(node):
+                    visit(node.body, nested)
+                    visit(node.orelse, nested)
+            elif isinstance(node, ast.Try):
+                for block in (node.body, node.orelse, node.finalbody):
+                    visit(block, nested)
+                for handler in node.handlers:
+                    visit(handler.body, nested)
+            elif isinstance(node, ast.With):
+                visit(node.body, nested)
+            elif isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef, ast.ClassDef)):
+                if not top_level_only:
+                    visit(node.body, True)
+            elif not top_level_only and hasattr(node, "body"):
+                visit(node.body, True)  # for/while bodies
+
+    visit(ast.parse(path.read_text()).body, False)
     return out
 
 
 def _top(name: str) -> str:
-    return name.split(".")[0]
+    """The wing or library a module belongs to: ``tuttiml.service.x`` -> ``service``."""
+    parts = name.split(".")
+    if parts[0] == NS and len(parts) > 1 and parts[1] in ("service", "workers"):
+        return parts[1]
+    return parts[0]
 
 
 def _modules(package: str) -> list[Path]:
     return sorted((ROOT / package).rglob("*.py"))
+
+
+def test_import_reader_sees_guarded_and_relative_imports(tmp_path: Path) -> None:
+    # A module that hides imports under try/if and imports relatively must not slip through.
+    fake = ROOT / "service" / "_layer_probe_tmp.py"
+    fake.write_text(
+        "try:\n    import optuna\nexcept ImportError:\n    pass\n"
+        "if True:\n    import lightgbm\n"
+        "from ..workers import search\n"
+        "from typing import TYPE_CHECKING\nif TYPE_CHECKING:\n    import sklearn\n"
+    )
+    try:
+        found = _imports(fake, top_level_only=True)
+    finally:
+        fake.unlink()
+    assert {"optuna", "lightgbm", "tuttiml.workers"} <= found
+    assert "sklearn" not in found
+
+
+@pytest.mark.parametrize("path", _modules("service") + _modules("workers") + _modules(NS))
+def test_no_bare_wing_imports(path: Path) -> None:
+    # Installed, the wings exist only as tuttiml.service / tuttiml.workers.
+    bare = {m for m in _imports(path) if m.split(".")[0] in ("service", "workers")}
+    assert not bare, f"{path}: import through the namespace, not {sorted(bare)}"
 
 
 @pytest.mark.parametrize("path", _modules("service"), ids=lambda p: p.name)
@@ -50,14 +131,14 @@ def test_contract_modules_import_only_stdlib_pydantic_and_each_other(name: str) 
     for mod in _imports(ROOT / "service" / f"{name}.py"):
         assert _top(mod) in allowed, f"service/{name}.py imports {mod}"
         if _top(mod) == "service":
-            assert mod.split(".")[1] in {"spec", "errors", "config", "keys"}, mod
+            assert mod.split(".")[2] in {"spec", "errors", "config", "keys"}, mod
 
 
 @pytest.mark.parametrize("name", ["ensembling", "combining"])
 def test_exported_estimator_modules_stay_light(name: str) -> None:
     allowed = STDLIB | {"numpy", "scipy", "sklearn", "lightgbm", "__future__"}
     for mod in _imports(ROOT / "workers" / f"{name}.py"):
-        assert _top(mod) in allowed or mod == "workers._sklearn_compat", f"{name}: {mod}"
+        assert _top(mod) in allowed or mod == "tuttiml.workers._sklearn_compat", f"{name}: {mod}"
 
 
 def test_families_never_import_each_other() -> None:
@@ -68,27 +149,29 @@ def test_families_never_import_each_other() -> None:
             continue
         for mod in _imports(path):
             parts = mod.split(".")
-            if parts[:2] == ["workers", "families"] and len(parts) > 2:
-                assert parts[2] not in names, f"{path.name} imports family {parts[2]}"
+            if parts[:3] == [NS, "workers", "families"] and len(parts) > 3:
+                assert parts[3] not in names, f"{path.name} imports family {parts[3]}"
 
 
 def test_workers_never_import_client_or_cli() -> None:
     for path in _modules("workers"):
         for mod in _imports(path):
-            assert mod not in {"service.client", "service.cli"}, f"{path.name}: {mod}"
+            assert mod not in {"tuttiml.service.client", "tuttiml.service.cli"}, (
+                f"{path.name}: {mod}"
+            )
 
 
 def test_registry_matches_known_families() -> None:
-    from service.spec import KNOWN_FAMILIES
-    from workers.families import FAMILIES
+    from tuttiml.service.spec import KNOWN_FAMILIES
+    from tuttiml.workers.families import FAMILIES
 
     assert tuple(sorted(FAMILIES)) == tuple(sorted(KNOWN_FAMILIES))
 
 
 def test_importing_the_client_pulls_in_no_ml_library() -> None:
     code = (
-        "import sys, service.client; bad = [m for m in ('sklearn', 'optuna', 'lightgbm', "
-        "'workers') if m in sys.modules]; print(','.join(bad))"
+        "import sys, tuttiml.service.client; bad = [m for m in ('sklearn', 'optuna', 'lightgbm', "
+        "'tuttiml.workers') if m in sys.modules]; print(','.join(bad))"
     )
     out = subprocess.run(
         [sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, check=True

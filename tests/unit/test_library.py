@@ -12,10 +12,9 @@ from scipy.optimize import nnls
 from scipy.stats import rankdata
 from sklearn.linear_model import LogisticRegression
 from sklearn.metrics import roc_auc_score
-
-from service.spec import Metric
-from workers import metrics
-from workers.library import (
+from tuttiml.service.spec import Metric
+from tuttiml.workers import metrics
+from tuttiml.workers.library import (
     LibraryEnsemble,
     build_library_ensembles,
     fit_meta,
@@ -421,7 +420,7 @@ def test_vectorised_greedy_selection_picks_what_the_scikit_learn_metric_picks(
     """Greedy selection ranks all members per round in one vectorised pass
     (``honesty.scores_on_rows``); the weights must equal those of the plain loop calling the
     scikit-learn metric (``metrics.scorer``) once per member and round."""
-    from workers.honesty import scores_on_rows
+    from tuttiml.workers.honesty import scores_on_rows
 
     rng = np.random.default_rng(7)
     n, m = 240, 12

@@ -10,13 +10,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from sklearn.datasets import load_breast_cancer
-
-from service.data import prepare
-from service.spec import Metric, SearchSpec
-from workers.datasets import build_dataset
-from workers.evaluation import cross_validate
-from workers.families import FAMILIES
-from workers.metrics import natural_score
+from tuttiml.service.data import prepare
+from tuttiml.service.spec import Metric, SearchSpec
+from tuttiml.workers.datasets import build_dataset
+from tuttiml.workers.evaluation import cross_validate
+from tuttiml.workers.families import FAMILIES
+from tuttiml.workers.metrics import natural_score
 
 pytestmark = pytest.mark.slow
 

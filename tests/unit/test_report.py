@@ -15,8 +15,7 @@ from typing import Any
 
 import numpy as np
 import pytest
-
-from service.report import render_report, write_report
+from tuttiml.service.report import render_report, write_report
 
 SAMPLE = Path(__file__).resolve().parents[1] / "fixtures" / "report_sample.json"
 EVIL = "<script>alert(1)</script>"

@@ -10,9 +10,8 @@ from typing import Any
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
-from service.errors import InvalidSpecError
-from service.spec import (
+from tuttiml.service.errors import InvalidSpecError
+from tuttiml.service.spec import (
     KNOWN_FAMILIES,
     METRICS_BY_TASK,
     Metric,

@@ -6,11 +6,10 @@ import json
 import threading
 
 import pytest
-
-from service.connection import connect
-from service.errors import JobNotFoundError
-from service.keys import Keys
-from service.store import JobState, JobStore
+from tuttiml.service.connection import connect
+from tuttiml.service.errors import JobNotFoundError
+from tuttiml.service.keys import Keys
+from tuttiml.service.store import JobState, JobStore
 
 
 @pytest.fixture

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from workers.finalize import Finalizer
+from tuttiml.workers.finalize import Finalizer
 
 
 def _trial(number: int, score: float) -> dict[str, Any]:
@@ -55,7 +55,7 @@ def test_a_library_ensemble_whose_refit_would_overrun_the_budget_is_passed_over(
     though 48 / 4 = 12 s: some pipeline must be exported)."""
     import time
 
-    from service.spec import SearchSpec
+    from tuttiml.service.spec import SearchSpec
 
     fin = Finalizer.__new__(Finalizer)
     fin.spec = SearchSpec(target="y", folds=5, wall_seconds=60)

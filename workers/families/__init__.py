@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-from service.errors import InvalidSpecError
-from workers.families._base import BaseFamily, FamilyContext
-from workers.families.bagging import BaggingFamily
-from workers.families.blending import BlendingFamily
-from workers.families.boosting import BoostingFamily
-from workers.families.single import SingleFamily
-from workers.families.stacking import StackingFamily
-from workers.families.voting import VotingFamily
+from tuttiml.service.errors import InvalidSpecError
+from tuttiml.workers.families._base import BaseFamily, FamilyContext
+from tuttiml.workers.families.bagging import BaggingFamily
+from tuttiml.workers.families.blending import BlendingFamily
+from tuttiml.workers.families.boosting import BoostingFamily
+from tuttiml.workers.families.single import SingleFamily
+from tuttiml.workers.families.stacking import StackingFamily
+from tuttiml.workers.families.voting import VotingFamily
 
 FAMILIES: dict[str, BaseFamily] = {
     "bagging": BaggingFamily(),

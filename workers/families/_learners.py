@@ -35,13 +35,12 @@ from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler, TargetEncoder
 from sklearn.svm import SVC, SVR, LinearSVC, LinearSVR
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
-
-from workers.ensembling import (
+from tuttiml.workers.ensembling import (
     EarlyStoppingBoosterClassifier,
     EarlyStoppingBoosterRegressor,
     RowCap,
 )
-from workers.families._base import ALL_TASKS, BINARY, MULTICLASS, REGRESSION, FamilyContext
+from tuttiml.workers.families._base import ALL_TASKS, BINARY, MULTICLASS, REGRESSION, FamilyContext
 
 if TYPE_CHECKING:
     import optuna

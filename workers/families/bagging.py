@@ -6,9 +6,8 @@ from typing import TYPE_CHECKING, Any
 
 from sklearn.ensemble import BaggingClassifier, BaggingRegressor
 from sklearn.pipeline import Pipeline
-
-from workers.families._base import BaseFamily, FamilyContext
-from workers.families._learners import LEARNERS, Params, learner_names, learners_cost
+from tuttiml.workers.families._base import BaseFamily, FamilyContext
+from tuttiml.workers.families._learners import LEARNERS, Params, learner_names, learners_cost
 
 if TYPE_CHECKING:
     import optuna

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Any
 
-from workers.ensembling import BlendingClassifier, BlendingRegressor
-from workers.families._base import BaseFamily, FamilyContext
-from workers.families._learners import (
+from tuttiml.workers.ensembling import BlendingClassifier, BlendingRegressor
+from tuttiml.workers.families._base import BaseFamily, FamilyContext
+from tuttiml.workers.families._learners import (
     LEARNERS,
     Params,
     chosen_members,

@@ -12,9 +12,8 @@ from sklearn.ensemble import (
 )
 from sklearn.pipeline import Pipeline
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
-
-from workers.families._base import BaseFamily, FamilyContext
-from workers.families._learners import CLASS_WEIGHTS, Params, lgbm_model, make_preprocessor
+from tuttiml.workers.families._base import BaseFamily, FamilyContext
+from tuttiml.workers.families._learners import CLASS_WEIGHTS, Params, lgbm_model, make_preprocessor
 
 if TYPE_CHECKING:
     import optuna

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Any
 
-from workers.families._base import BaseFamily, FamilyContext
-from workers.families._learners import LEARNERS, Params, learner_names, learners_cost
+from tuttiml.workers.families._base import BaseFamily, FamilyContext
+from tuttiml.workers.families._learners import LEARNERS, Params, learner_names, learners_cost
 
 if TYPE_CHECKING:
     import optuna

@@ -6,10 +6,9 @@ from typing import TYPE_CHECKING, Any
 
 from sklearn.ensemble import StackingClassifier, StackingRegressor
 from sklearn.pipeline import Pipeline
-
-from workers.ensembling import RowCap
-from workers.families._base import BaseFamily, FamilyContext
-from workers.families._learners import (
+from tuttiml.workers.ensembling import RowCap
+from tuttiml.workers.families._base import BaseFamily, FamilyContext
+from tuttiml.workers.families._learners import (
     LEARNERS,
     Params,
     chosen_members,

@@ -5,9 +5,8 @@ from __future__ import annotations
 from typing import TYPE_CHECKING, Any
 
 from sklearn.ensemble import VotingClassifier, VotingRegressor
-
-from workers.families._base import BaseFamily, FamilyContext
-from workers.families._learners import (
+from tuttiml.workers.families._base import BaseFamily, FamilyContext
+from tuttiml.workers.families._learners import (
     LEARNERS,
     Params,
     chosen_members,
