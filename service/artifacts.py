@@ -20,6 +20,13 @@ from tuttiml.service.errors import ArtifactError
 from tuttiml.service.trusted import LEGACY_MODULES, TRUSTED_TYPES
 
 
+def seal(blob: bytes, key: str | None) -> str | None:
+    """HMAC-SHA256 of an artifact when a key is set (what :func:`check_integrity` checks)."""
+    if not key:
+        return None
+    return hmac.new(key.encode(), blob, hashlib.sha256).hexdigest()
+
+
 def check_integrity(blob: bytes, meta: dict[str, Any], key: str | None) -> None:
     """Refuse bytes whose SHA-256 (and HMAC, when a key is set) do not match the metadata."""
     digest = hashlib.sha256(blob).hexdigest()
@@ -32,8 +39,8 @@ def check_integrity(blob: bytes, meta: dict[str, Any], key: str | None) -> None:
         )
     if key:
         mac = meta.get("hmac")
-        want = hmac.new(key.encode(), blob, hashlib.sha256).hexdigest()
-        if not mac or not hmac.compare_digest(str(mac), want):
+        want = seal(blob, key)
+        if not mac or not want or not hmac.compare_digest(str(mac), want):
             raise ArtifactError(
                 "artifact HMAC does not match TUTTI_ARTIFACT_KEY: it was not written by a worker "
                 "holding this key (or it was tampered with); refusing to load it.",

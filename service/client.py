@@ -18,7 +18,7 @@ from tuttiml.service.connection import connect, resolve_url
 from tuttiml.service.errors import ArtifactError, JobStateError
 from tuttiml.service.keys import Keys, check_id
 from tuttiml.service.queue import TaskQueue
-from tuttiml.service.spec import LOWER_IS_BETTER, Metric, SearchSpec, parse_spec
+from tuttiml.service.spec import Metric, SearchSpec, natural, parse_spec, score_sign
 from tuttiml.service.store import JobState, JobStore
 
 SHARD_TIMEOUT_SLACK = 600.0
@@ -208,9 +208,7 @@ class Job:
         metric = Metric(spec.metric) if spec.metric else None
         done = int(rec.get("n_complete", 0) or 0) + int(rec.get("n_pruned", 0) or 0)
         best = self.store.best_score(self.id)
-        natural = None
-        if best is not None and metric is not None:
-            natural = -best if metric in LOWER_IS_BETTER else best
+        best_natural = natural(metric, best) if metric is not None else None
         start = rec.get("started_at")
         end = rec.get("finalized_at") or (time.time() if start else None)
         elapsed = (end - start) if start and end else 0.0
@@ -233,7 +231,7 @@ class Job:
             "complete": int(rec.get("n_complete", 0) or 0),
             "pruned": int(rec.get("n_pruned", 0) or 0),
             "failed": int(rec.get("n_failed", 0) or 0),
-            "best": natural,
+            "best": best_natural,
             "elapsed": elapsed,
             "eta": eta,
             "stop_reason": rec.get("stop_reason"),
@@ -306,7 +304,6 @@ class Job:
         rec = self.record()
         spec = SearchSpec.model_validate(rec["spec"])
         metric = Metric(spec.metric) if spec.metric else Metric.ROC_AUC
-        sign = -1.0 if metric in LOWER_IS_BETTER else 1.0
         rows = []
         for r in self.store.board(self.id):
             rows.append(
@@ -358,7 +355,7 @@ class Job:
             board = pd.DataFrame(rows).sort_values(
                 ["score", "candidate"], ascending=[False, True], kind="stable"
             )
-            board[metric.value] = sign * board.pop("score")
+            board[metric.value] = [natural(metric, s) for s in board.pop("score")]
             board[f"{metric.value}_std"] = board.pop("std")
             board.insert(0, "rank", range(1, len(board) + 1))
             board = board[cols].reset_index(drop=True)
@@ -370,8 +367,8 @@ class Job:
                 board["exported"] = board["candidate"] == best
         board.attrs.update(
             metric=metric.value,
-            greater_is_better=sign > 0,
-            direction="higher is better" if sign > 0 else "lower is better",
+            greater_is_better=score_sign(metric) > 0,
+            direction="higher is better" if score_sign(metric) > 0 else "lower is better",
         )
         return board
 

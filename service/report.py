@@ -54,13 +54,13 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from tuttiml.service.spec import Metric, score_sign
 
 __all__ = ["render_report", "write_report"]
 
 # Okabe–Ito colours (readable with the common colour-vision deficiencies), yellow left out.
 _PALETTE = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#D55E00", "#56B4E9", "#000000")
 _GREY = "#9a9a9a"
-_LOWER_IS_BETTER = ("rmse", "mse", "mae", "mape", "log_loss", "logloss", "brier", "deviance")
 _PLOT_W, _PLOT_H = 540, 330
 _MARGIN = {"left": 64, "right": 18, "top": 34, "bottom": 48}
 
@@ -811,7 +811,12 @@ def _context(data: Any) -> _Ctx:
     gib = data.get("greater_is_better")
     known = isinstance(gib, bool)
     if not known:
-        gib = not any(token in str(metric).lower() for token in _LOWER_IS_BETTER)
+        if str(metric) not in {m.value for m in Metric}:
+            raise ValueError(
+                f"render_report: metric {metric!r} is not one of tutti's, so its direction is "
+                "unknown; add 'greater_is_better' (true or false) to the report data."
+            )
+        gib, known = score_sign(str(metric)) > 0, True
     keys = ("leaderboard", "trials", "bias_variance")
     fams = {str(r["family"]) for k in keys for r in _rows(data, k) if r.get("family") is not None}
     colors = {f: _PALETTE[i % len(_PALETTE)] for i, f in enumerate(sorted(fams))}

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Any
 
-from tuttiml.service.spec import LOWER_IS_BETTER, Metric
+from tuttiml.service.spec import Metric, natural, score_sign
 from tuttiml.service.version import __version__
 
 if TYPE_CHECKING:
@@ -14,7 +14,7 @@ if TYPE_CHECKING:
 DISAGREE = 0.05
 
 
-def _honest(extras: dict[str, Any], sign: float) -> dict[str, Any]:
+def _honest(extras: dict[str, Any]) -> dict[str, Any]:
     honest = dict((extras.get("explain") or {}).get("honest") or {})
     holdout = extras.get("holdout_score")
     if holdout is not None:
@@ -35,7 +35,6 @@ def collect(job: Job) -> dict[str, Any]:
     extras = job.extras()
     board = job.leaderboard()
     metric = Metric(board.attrs["metric"])
-    sign = -1.0 if metric in LOWER_IS_BETTER else 1.0
     explain = extras.get("explain") or {}
     sig = {r["candidate"]: r for r in explain.get("significance") or []}
     leaderboard = []
@@ -64,7 +63,7 @@ def collect(job: Job) -> dict[str, Any]:
             "number": t["number"],
             "family": t.get("family"),
             "state": t.get("state"),
-            "score": sign * t["score"] if t.get("score") is not None else None,
+            "score": natural(metric, t.get("score")),
             "finished_at": t.get("finished_at"),
         }
         for t in job.store.trial_rows(job.id)
@@ -84,12 +83,12 @@ def collect(job: Job) -> dict[str, Any]:
             "finished_at": rec.get("finalized_at"),
         },
         "metric": metric.value,
-        "greater_is_better": sign > 0,
+        "greater_is_better": score_sign(metric) > 0,
         "spec": rec.get("spec") or {},
         "summary": summary,
         "leaderboard": leaderboard,
         "trials": trials,
-        "honest": _honest(extras, sign),
+        "honest": _honest(extras),
         "bias_variance": explain.get("bias_variance") or [],
         "pareto": extras.get("pareto") or [],
         "ensembles": (explain.get("ensembles") or []) + (explain.get("composites") or []),

@@ -70,6 +70,21 @@ METRICS_BY_TASK: dict[Task, tuple[Metric, ...]] = {
 LOWER_IS_BETTER: frozenset[Metric] = frozenset({Metric.LOG_LOSS, Metric.RMSE, Metric.MAE})
 
 
+def score_sign(metric: Metric | str) -> float:
+    """+1 when greater is better, -1 when smaller is better.
+
+    Every score tutti stores is greater-is-better (an RMSE of 3.2 is stored as -3.2), so
+    sorting and comparing never branch on the metric; :func:`natural` turns a stored score
+    back into the metric's own sign, at the presentation edge only.
+    """
+    return -1.0 if Metric(metric) in LOWER_IS_BETTER else 1.0
+
+
+def natural(metric: Metric | str, stored: float | None) -> float | None:
+    """A stored (greater-is-better) score in the metric's natural sign; ``None`` stays ``None``."""
+    return None if stored is None else score_sign(metric) * float(stored)
+
+
 def default_metric(task: Task) -> Metric:
     """The metric used when the spec names none."""
     return METRICS_BY_TASK[task][0]

@@ -8,15 +8,14 @@ job record, so a duplicate finalize changes nothing.
 from __future__ import annotations
 
 import contextlib
-import hashlib
-import hmac
 import logging
 import platform
 import time
 from collections.abc import Iterable
 from typing import Any
 
-from tuttiml.service.spec import LOWER_IS_BETTER, SearchSpec
+from tuttiml.service.artifacts import seal
+from tuttiml.service.spec import SearchSpec, natural
 from tuttiml.service.store import JobState
 from tuttiml.service.trusted import TRUSTED_TYPES
 from tuttiml.workers.child import ChildFailure, TrialCrashed
@@ -45,13 +44,6 @@ def versions() -> dict[str, str]:
         "skops": skops.__version__,
         "python": platform.python_version(),
     }
-
-
-def sign(blob: bytes, key: str | None) -> str | None:
-    """HMAC-SHA256 of an artifact when a key is configured."""
-    if not key:
-        return None
-    return hmac.new(key.encode(), blob, hashlib.sha256).hexdigest()
 
 
 def refit_seconds(rows: Iterable[dict[str, Any]], folds: int) -> float:
@@ -216,11 +208,10 @@ class Finalizer:
                 refits += 1
             except (ChildFailure, TrialCrashed, ValueError) as exc:
                 self.log(f"pareto refit of {p['id']} failed: {exc}")
-        sign = -1.0 if self.spec.metric in LOWER_IS_BETTER else 1.0
         return [
             {
                 "candidate": p["id"],
-                "score": sign * p["score"],
+                "score": natural(self.spec.metric, p["score"]),
                 "predict_ms": p["predict_ms"],
                 "on_front": p["id"] in front,
             }
@@ -378,7 +369,7 @@ class Finalizer:
             "classes": self.record.get("classes"),
             "schema": self.record["schema"],
             "sha256": out["sha256"],
-            "hmac": sign(blob, self.ctx.settings.artifact_key),
+            "hmac": seal(blob, self.ctx.settings.artifact_key),
             "size_bytes": out["size_bytes"],
             "fit_seconds": out["fit_seconds"],
             "predict_ms": out["predict_ms"],

@@ -11,7 +11,7 @@ from collections.abc import Callable
 
 import numpy as np
 from sklearn import metrics as skm
-from tuttiml.service.spec import LOWER_IS_BETTER, Metric
+from tuttiml.service.spec import Metric, score_sign
 
 _EPS = 1e-15
 
@@ -58,7 +58,7 @@ def natural_score(
 
 def sign(metric: Metric) -> float:
     """+1 when greater is better, -1 when smaller is better."""
-    return -1.0 if Metric(metric) in LOWER_IS_BETTER else 1.0
+    return score_sign(metric)
 
 
 def score(

@@ -212,9 +212,19 @@ def test_lower_is_better_metric_is_stated_and_optimism_sign_follows(
     assert "+0.1500" in page
 
 
-def test_direction_is_guessed_from_the_metric_name_and_flagged(minimal: dict[str, Any]) -> None:
+def test_direction_comes_from_the_metric_when_the_data_omits_it(minimal: dict[str, Any]) -> None:
+    # log loss: smaller is better (scikit-learn's log_loss docs; its scorer is negated)
+    minimal.pop("greater_is_better", None)
     minimal["metric"] = "log_loss"
-    assert "lower is better (assumed from the metric name)" in render_report(minimal)
+    page = render_report(minimal)
+    assert "lower is better" in page and "assumed" not in page
+
+
+def test_unknown_metric_without_direction_is_refused(minimal: dict[str, Any]) -> None:
+    minimal.pop("greater_is_better", None)
+    minimal["metric"] = "weird_loss"
+    with pytest.raises(ValueError, match="greater_is_better"):
+        render_report(minimal)
 
 
 def test_missing_share_lists_at_most_twenty_columns(minimal: dict[str, Any]) -> None:
