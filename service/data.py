@@ -37,6 +37,8 @@ import pyarrow.parquet as pq
 from tuttiml.service.errors import InvalidDataError, InvalidSpecError
 from tuttiml.service.spec import SearchSpec, Task
 
+from tuttiml._timeunits import DURATION, time_kind, to_seconds
+
 __all__ = [
     "HIGH_CARDINALITY",
     "MAX_INTEGER_CLASSES",
@@ -68,7 +70,7 @@ _SUFFIXES = ", ".join(CSV_SUFFIXES + PARQUET_SUFFIXES)
 _NUMERIC_KINDS = frozenset(
     {"integer", "floating", "mixed-integer-float", "decimal", "boolean", "empty"}
 )
-_DATETIME_KINDS = frozenset({"datetime64", "datetime", "date"})
+_TIME_KINDS = frozenset({"datetime64", "datetime", "date", "timedelta"})
 
 
 class ColumnKind(enum.StrEnum):
@@ -284,6 +286,8 @@ def _normalize_column(name: str, series: pd.Series, report: _Report) -> np.ndarr
         values = series.to_numpy(dtype="float64", na_value=np.nan)
     elif dtype.kind in ("m", "M"):
         values = _seconds(name, series, report)
+        if values is None:  # pragma: no cover - datetime64/timedelta64 dtypes always convert
+            return _as_text(series)
     else:
         values = _from_objects(name, series.astype(object), report)
         if values.dtype == object:
@@ -301,14 +305,10 @@ def _from_objects(name: str, series: pd.Series, report: _Report) -> np.ndarray:
             return _as_text(series)
     if kind == "complex":
         return _complex_problem(name, report, len(series))
-    try:
-        if kind in _DATETIME_KINDS:
-            return _seconds(name, pd.to_datetime(series, utc=True), report)
-        if kind == "timedelta":
-            return _seconds(name, pd.to_timedelta(series), report)
-    except (TypeError, ValueError, OverflowError):
-        pass  # mixed time zones or odd values: keep them as text
-    return _as_text(series)
+    if kind not in _TIME_KINDS:
+        return _as_text(series)
+    seconds = _seconds(name, series, report)  # None for mixed time zones or odd values
+    return _as_text(series) if seconds is None else seconds
 
 
 def _as_text(series: pd.Series) -> np.ndarray:
@@ -328,19 +328,25 @@ def _text(value: Any) -> str:
     return str(value)
 
 
-def _seconds(name: str, series: pd.Series, report: _Report) -> np.ndarray:
-    """Datetimes as seconds since 1970-01-01 UTC (naive ones read as UTC); durations as seconds."""
-    if series.dtype.kind == "m":
+def _seconds(name: str, series: pd.Series, report: _Report) -> np.ndarray | None:
+    """Datetimes as seconds since 1970-01-01 UTC (naive ones read as UTC); durations as seconds.
+
+    The rule lives in :mod:`tuttiml._timeunits`, shared with the exported pipelines'
+    ``FrameNormalizer`` so predicting on the user's own rows sees the same numbers. None when
+    the column is not datetimes or durations after all (then it stays text).
+    """
+    kind = time_kind(series, pd)
+    seconds = to_seconds(series, pd)
+    if seconds is None:
+        return None
+    if kind == DURATION:
         report.warnings.append(f"column {name!r}: durations converted to seconds.")
     else:
         report.warnings.append(
             f"column {name!r}: datetimes converted to seconds since 1970-01-01 UTC "
             "(times without a time zone read as UTC)."
         )
-        stamps = pd.to_datetime(series, utc=True)  # epoch in the same unit: no ns overflow
-        series = stamps - pd.Timestamp(0, tz="UTC").as_unit(stamps.dt.unit)
-    seconds = series / pd.Timedelta(seconds=1)
-    return np.asarray(seconds.to_numpy(dtype="float64", na_value=np.nan))
+    return seconds
 
 
 def _finite(name: str, values: np.ndarray, report: _Report) -> np.ndarray:

@@ -3,9 +3,9 @@
 Everything here ends up inside exported pipelines that users load with skops, so each class is a
 plain scikit-learn estimator: ``__init__`` only stores its arguments, ``fit`` validates them and
 returns ``self``, learned state ends in ``_`` and prediction methods call ``check_is_fitted``.
-This module imports only numpy, scikit-learn, LightGBM and ``workers._sklearn_compat`` (pandas is
-obtained through scikit-learn's optional-dependency helper), so a pipeline needs nothing more at
-prediction time.
+This module imports only numpy, scikit-learn, LightGBM, ``workers._sklearn_compat`` and
+``tuttiml._timeunits`` (numpy only; pandas is obtained through scikit-learn's
+optional-dependency helper), so a pipeline needs nothing more at prediction time.
 """
 
 from __future__ import annotations
@@ -33,6 +33,8 @@ from sklearn.utils.metaestimators import available_if
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 from tuttiml.workers._sklearn_compat import NamedEstimatorsBase, pandas_module, take_rows
+
+from tuttiml._timeunits import to_seconds
 
 # Exported files record this path (see tuttiml/estimators.py); keep it when moving code.
 STABLE_MODULE = "tuttiml.estimators"
@@ -790,7 +792,14 @@ class FrameNormalizer(TransformerMixin, BaseEstimator):
 
 
 def _numeric(col: Any, name: str, pd: Any) -> Any:
-    """A column as float64 with NaN for missing; ValueError naming the column otherwise."""
+    """A column as float64 with NaN for missing; ValueError naming the column otherwise.
+
+    Datetimes and durations become seconds by the same rule the table went through before
+    training (:func:`tuttiml._timeunits.to_seconds`), not by ``pd.to_numeric``'s raw ticks.
+    """
+    seconds = to_seconds(col, pd)
+    if seconds is not None:
+        return pd.Series(seconds, index=col.index, dtype="float64")
     series = col.astype(object) if isinstance(col.dtype, pd.CategoricalDtype) else col
     if pd.api.types.is_bool_dtype(series):
         series = series.astype(object)

@@ -2,6 +2,10 @@
 
 from __future__ import annotations
 
+import warnings
+from datetime import UTC, datetime, timedelta, timezone
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -10,8 +14,10 @@ from lightgbm import LGBMClassifier, LGBMRegressor
 from numpy.testing import assert_allclose, assert_array_equal
 from sklearn.linear_model import LinearRegression, LogisticRegression, Ridge
 from sklearn.naive_bayes import GaussianNB
+from sklearn.pipeline import make_pipeline
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
 from sklearn.utils.estimator_checks import parametrize_with_checks
+from tuttiml.service.data import normalize_frame
 from tuttiml.service.trusted import TRUSTED_TYPES
 from tuttiml.workers.ensembling import (
     BlendingClassifier,
@@ -23,6 +29,8 @@ from tuttiml.workers.ensembling import (
     best_iterations,
     refit_rounds,
 )
+
+FIXTURES = Path(__file__).resolve().parents[1] / "fixtures"
 
 
 def _small_lgbm(cls: type) -> object:
@@ -105,6 +113,61 @@ def test_frame_normalizer_converts_raw_rows() -> None:
     assert out["flag"].iloc[0] == "1" and isinstance(out["flag"].iloc[0], str)
     assert out["city"].isna().tolist() == [False, True, False]
     assert out["flag"].isna().tolist() == [False, True, False]
+
+
+def _time_table() -> pd.DataFrame:
+    """Datetime and duration columns in the units and time zones users hand over."""
+    stamps = ["2024-01-26 00:00:00", None, "1999-12-31 23:59:30"]
+    return pd.DataFrame(
+        {
+            "ns": pd.to_datetime(stamps),
+            "us": pd.to_datetime(stamps).as_unit("us"),
+            "s": pd.to_datetime(stamps).as_unit("s"),
+            "tz": pd.to_datetime(stamps).tz_localize("Asia/Tokyo"),
+            "objects": pd.Series(
+                [datetime(2024, 1, 26, tzinfo=UTC), None, datetime(1999, 12, 31, tzinfo=UTC)],
+                dtype=object,
+            ),
+            "took": pd.to_timedelta(["90s", None, "2h"]),
+            "took_ms": pd.to_timedelta(["90s", None, "2h"]).as_unit("ms"),
+        }
+    )
+
+
+def test_frame_normalizer_sees_times_as_training_did() -> None:
+    # Training stores what service.data made of the user's table; predicting on the user's own
+    # rows must give the model the same numbers (pd.to_numeric would give raw ns/us ticks).
+    raw = _time_table()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)
+        trained_on = normalize_frame(raw)
+    norm = FrameNormalizer(dict.fromkeys(raw.columns, "numeric")).fit(trained_on)
+    pd.testing.assert_frame_equal(norm.transform(raw), trained_on, check_exact=True)
+    # outside reference: Python's datetime.timestamp() (seconds since 1970-01-01 UTC)
+    jan26 = datetime(2024, 1, 26, tzinfo=UTC).timestamp()
+    assert norm.transform(raw)["us"].iloc[0] == jan26 == 1706227200.0
+    tokyo = datetime(2024, 1, 26, tzinfo=timezone(timedelta(hours=9))).timestamp()
+    assert norm.transform(raw)["tz"].iloc[0] == tokyo
+    assert norm.transform(raw)["took_ms"].tolist()[::2] == [90.0, 7200.0]
+    pipe = make_pipeline(
+        FrameNormalizer(dict.fromkeys(raw.columns, "numeric")),
+        DecisionTreeRegressor(random_state=0),
+    ).fit(trained_on.iloc[[0, 2]], [1.0, 3.0])
+    assert_allclose(pipe.predict(raw.iloc[[2, 0]]), [3.0, 1.0])
+
+
+def test_an_exported_frame_normalizer_of_0_1_0_still_loads_and_reads_times() -> None:
+    # tests/fixtures/exported_0_1_0.skops (tutti 0.1.0): its FrameNormalizer, loaded by today's
+    # code, converts datetimes with today's rule (the class kept its parameters and state).
+    from tuttiml.service.artifacts import read_export
+
+    model, _ = read_export(FIXTURES / "exported_0_1_0.skops")
+    norm = model.steps[0][1]
+    assert isinstance(norm, FrameNormalizer)
+    first = next(iter(norm.schema_))
+    raw = pd.DataFrame({c: [0.0] for c in norm.schema_})
+    raw[first] = pd.to_datetime(["1970-01-01 00:01:00"]).as_unit("us")
+    assert norm.transform(raw)[first].iloc[0] == 60.0
 
 
 def test_frame_normalizer_names_missing_columns() -> None:

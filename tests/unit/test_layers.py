@@ -134,11 +134,22 @@ def test_contract_modules_import_only_stdlib_pydantic_and_each_other(name: str) 
             assert mod.split(".")[2] in {"spec", "errors", "config", "keys"}, mod
 
 
+#: Modules of tutti an exported estimator may import: both hold plain functions over numpy.
+LIGHT_HELPERS = {"tuttiml.workers._sklearn_compat", "tuttiml._timeunits"}
+
+
 @pytest.mark.parametrize("name", ["ensembling", "combining"])
 def test_exported_estimator_modules_stay_light(name: str) -> None:
     allowed = STDLIB | {"numpy", "scipy", "sklearn", "lightgbm", "__future__"}
     for mod in _imports(ROOT / "workers" / f"{name}.py"):
-        assert _top(mod) in allowed or mod == "tuttiml.workers._sklearn_compat", f"{name}: {mod}"
+        assert _top(mod) in allowed or mod in LIGHT_HELPERS, f"{name}: {mod}"
+
+
+def test_the_shared_time_rule_imports_numpy_only() -> None:
+    # service/data.py and the exported FrameNormalizer both call it, so it must stay light
+    allowed = STDLIB | {"numpy", "__future__"}
+    for mod in _imports(ROOT / NS / "_timeunits.py"):
+        assert _top(mod) in allowed, f"_timeunits: {mod}"
 
 
 def test_families_never_import_each_other() -> None:
