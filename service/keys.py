@@ -86,6 +86,14 @@ class Keys:
     def shard_lease(self, job_id: str, shard: int) -> str:
         return f"{self.prefix}:job:{job_id}:shard:{shard}:lease"
 
+    def shard_lease_pattern(self, job_id: str) -> str:
+        """Pattern matching the leases of every running shard of a job."""
+        return f"{self.prefix}:job:{job_id}:shard:*:lease"
+
+    def suspicion(self, job_id: str, what: str) -> str:
+        """When the sweep first suspected ``what`` (lost shards, lost finalize) of a job."""
+        return f"{self.prefix}:job:{job_id}:suspect:{what}"
+
     def trials(self, job_id: str) -> str:
         """Hash: trial number -> JSON result row."""
         return f"{self.prefix}:job:{job_id}:trials"

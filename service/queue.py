@@ -19,6 +19,7 @@ class TaskQueue:
 
     def __init__(self, client: redis.Redis, keys: Keys) -> None:
         self.keys = keys
+        self.connection = client  # RQ workers serve these queues over the same connection
         self.search = Queue(keys.queue_name, connection=client, serializer=SERIALIZER)
         self.final = Queue(keys.finalize_queue_name, connection=client, serializer=SERIALIZER)
 

@@ -107,8 +107,40 @@ def _text(value: Any) -> str:
     return value.decode() if isinstance(value, bytes) else str(value)
 
 
+class JournalList:
+    """One job's Optuna journal as a Redis list: atomic batch appends, ranged reads.
+
+    The Optuna backend (``workers.journal``) wraps this; the list is the only Redis it sees.
+    Picklable: it drops its client and reconnects with the same connection settings.
+    """
+
+    def __init__(self, client: redis.Redis, key: str) -> None:
+        self._client = client
+        self.key = key
+
+    def read(self, start: int, count: int) -> list[bytes]:
+        return list(self._client.lrange(self.key, start, start + count - 1))
+
+    def append(self, items: list[str]) -> None:
+        if items:
+            self._client.rpush(self.key, *items)
+
+    def __getstate__(self) -> dict[str, Any]:
+        pool = self._client.connection_pool
+        plain = (str, int, float, bool, type(None))
+        kwargs = {k: v for k, v in pool.connection_kwargs.items() if isinstance(v, plain)}
+        return {"key": self.key, "kwargs": kwargs, "cls": pool.connection_class.__name__}
+
+    def __setstate__(self, state: dict[str, Any]) -> None:
+        self.key = state["key"]
+        kwargs = dict(state["kwargs"])
+        if state["cls"] == "UnixDomainSocketConnection":
+            kwargs["unix_socket_path"] = kwargs.pop("path")
+        self._client = redis.Redis(**kwargs)
+
+
 class JobStore:
-    """Reads and writes one deployment's jobs.
+    """Reads and writes one deployment's jobs; the only holder of the Redis handle.
 
     Args:
         client: a Redis client (bytes responses).
@@ -116,7 +148,7 @@ class JobStore:
     """
 
     def __init__(self, client: redis.Redis, keys: Keys) -> None:
-        self.r = client
+        self._r = client
         self.keys = keys
         self._transition = client.register_script(_TRANSITION)
         self._ticket = client.register_script(_TICKET)
@@ -124,7 +156,7 @@ class JobStore:
 
     # ------------------------------------------------------------------ data blobs
     def has_data(self, digest: str) -> bool:
-        return bool(self.r.exists(self.keys.data_meta(digest)))
+        return bool(self._r.exists(self.keys.data_meta(digest)))
 
     def put_data(
         self,
@@ -142,16 +174,16 @@ class JobStore:
         view = memoryview(data)
         n = max(1, -(-len(data) // chunk_bytes))
         for i in range(n):
-            self.r.set(
+            self._r.set(
                 self.keys.data_chunk(digest, i),
                 bytes(view[i * chunk_bytes : (i + 1) * chunk_bytes]),
             )
             if progress:
                 progress(min((i + 1) * chunk_bytes, len(data)), len(data))
-        self.r.set(self.keys.data_meta(digest), json.dumps({"chunks": n, "bytes": len(data)}))
+        self._r.set(self.keys.data_meta(digest), json.dumps({"chunks": n, "bytes": len(data)}))
 
     def get_data(self, digest: str) -> bytearray:
-        raw = self.r.get(self.keys.data_meta(digest))
+        raw = self._r.get(self.keys.data_meta(digest))
         if raw is None:
             raise InvalidDataError(
                 f"data blob {digest[:12]}… is not in the store; resubmit the job.",
@@ -162,7 +194,7 @@ class JobStore:
         out = bytearray(int(meta["bytes"]))  # one buffer, filled chunk by chunk
         pos = 0
         for i in range(meta["chunks"]):
-            part = self.r.get(self.keys.data_chunk(digest, i))
+            part = self._r.get(self.keys.data_chunk(digest, i))
             if part is None:
                 raise InvalidDataError(
                     f"data blob {digest[:12]}… is incomplete; resubmit the job.",
@@ -194,7 +226,7 @@ class JobStore:
                 "shards": str(shards),
             }
         )
-        pipe = self.r.pipeline(transaction=True)
+        pipe = self._r.pipeline(transaction=True)
         pipe.hset(self.keys.job(job_id), mapping=fields)
         pipe.zadd(self.keys.jobs, {job_id: now})
         pipe.set(self.keys.tickets(job_id), 0)
@@ -207,7 +239,7 @@ class JobStore:
         pipe.execute()
 
     def exists(self, job_id: str) -> bool:
-        return bool(self.r.hexists(self.keys.job(check_id(job_id)), "state"))
+        return bool(self._r.hexists(self.keys.job(check_id(job_id)), "state"))
 
     def job(self, job_id: str) -> dict[str, Any]:
         """The job record with JSON fields decoded.
@@ -215,7 +247,7 @@ class JobStore:
         Raises:
             JobNotFoundError: no such job (the message says how to list jobs).
         """
-        raw = self.r.hgetall(self.keys.job(check_id(job_id)))
+        raw = self._r.hgetall(self.keys.job(check_id(job_id)))
         if not raw or b"state" not in raw:
             raise JobNotFoundError(
                 f"job {job_id!r} not found in this store; run `tutti status` to list jobs "
@@ -235,13 +267,13 @@ class JobStore:
         return out
 
     def state(self, job_id: str) -> JobState:
-        raw = self.r.hget(self.keys.job(job_id), "state")
+        raw = self._r.hget(self.keys.job(job_id), "state")
         if raw is None:
             self.job(job_id)  # raises JobNotFoundError
         return JobState(_text(raw))
 
     def set_fields(self, job_id: str, **fields: Any) -> None:
-        self.r.hset(
+        self._r.hset(
             self.keys.job(job_id),
             mapping={k: (v if isinstance(v, str) else json.dumps(v)) for k, v in fields.items()},
         )
@@ -249,8 +281,8 @@ class JobStore:
     def set_field_once(self, job_id: str, name: str, value: Any) -> Any:
         """Set a field only if unset; return the value that is stored afterwards."""
         key = self.keys.job(job_id)
-        self.r.hsetnx(key, name, value if isinstance(value, str) else json.dumps(value))
-        return _text(self.r.hget(key, name))
+        self._r.hsetnx(key, name, value if isinstance(value, str) else json.dumps(value))
+        return _text(self._r.hget(key, name))
 
     def transition(
         self,
@@ -284,10 +316,67 @@ class JobStore:
         return st
 
     def events(self, job_id: str) -> list[dict[str, Any]]:
-        return [json.loads(e) for e in self.r.lrange(self.keys.job_events(job_id), 0, -1)]
+        return [json.loads(e) for e in self._r.lrange(self.keys.job_events(job_id), 0, -1)]
 
     def job_ids(self) -> list[str]:
-        return [_text(j) for j in self.r.zrange(self.keys.jobs, 0, -1)]
+        return [_text(j) for j in self._r.zrange(self.keys.jobs, 0, -1)]
+
+    def incr_field(self, job_id: str, name: str, by: int = 1) -> int:
+        """Add ``by`` to a counter field of the job record; returns the new value."""
+        return int(self._r.hincrby(self.keys.job(job_id), name, by))
+
+    def claim_field(self, job_id: str, name: str) -> bool:
+        """Set a flag field if nobody has; True for the one caller that set it."""
+        return bool(self._r.hsetnx(self.keys.job(job_id), name, 1))
+
+    def committed_epoch(self, job_id: str) -> str | None:
+        """The epoch whose final result is committed (None before the first commit)."""
+        raw = self._r.hget(self.keys.job(job_id), "committed_epoch")
+        return None if raw is None else _text(raw)
+
+    # ------------------------------------------------------------------ leases, liveness
+    def hold_lease(self, key: str, milliseconds: int) -> None:
+        """Write or refresh a lease key (from ``Keys.trial_lease`` / ``Keys.shard_lease``)."""
+        self._r.set(key, b"1", px=milliseconds)
+
+    def drop_lease(self, key: str) -> None:
+        self._r.delete(key)
+
+    def trial_leased(self, job_id: str, trial_id: int) -> bool:
+        """True while the worker running this Optuna trial keeps its lease fresh."""
+        return bool(self._r.exists(self.keys.trial_lease(job_id, trial_id)))
+
+    def running_shards(self, job_id: str) -> int:
+        """How many shards of the job hold a live lease right now."""
+        pattern = self.keys.shard_lease_pattern(job_id)
+        return sum(1 for _ in self._r.scan_iter(match=pattern, count=200))
+
+    def note_suspicion(self, job_id: str, what: str, now: float, ttl: int) -> float | None:
+        """When ``what`` was first suspected (None, and noted now, if this is the first time)."""
+        key = self.keys.suspicion(job_id, what)
+        first = self._r.get(key)
+        if first is None:
+            self._r.set(key, repr(now), ex=ttl)
+            return None
+        return float(first)
+
+    def clear_suspicion(self, job_id: str, what: str) -> None:
+        self._r.delete(self.keys.suspicion(job_id, what))
+
+    def put_worker(self, name: str, doc: dict[str, Any], ttl: int) -> None:
+        """A worker's heartbeat: what it is doing, expiring unless refreshed."""
+        self._r.set(self.keys.worker_alive(name), json.dumps(doc, default=str), ex=ttl)
+
+    def drop_worker(self, name: str) -> None:
+        self._r.delete(self.keys.worker_alive(name))
+
+    def server_uptime(self) -> float:
+        """Seconds since the Redis server started (expiries restart with it)."""
+        return float(self._r.info("server").get("uptime_in_seconds", 1e9))
+
+    def journal(self, job_id: str) -> JournalList:
+        """The job's Optuna journal list."""
+        return JournalList(self._r, self.keys.journal(job_id))
 
     # ------------------------------------------------------------------ budget counters
     def take_ticket(self, job_id: str, budget: int) -> int | None:
@@ -296,26 +385,26 @@ class JobStore:
         return None if n < 0 else n
 
     def return_ticket(self, job_id: str) -> None:
-        self.r.decr(self.keys.tickets(job_id))
+        self._r.decr(self.keys.tickets(job_id))
 
     def tickets(self, job_id: str) -> int:
-        return int(self.r.get(self.keys.tickets(job_id)) or 0)
+        return int(self._r.get(self.keys.tickets(job_id)) or 0)
 
     def add_failure(self, job_id: str) -> int:
-        return int(self.r.incr(self.keys.failures(job_id)))
+        return int(self._r.incr(self.keys.failures(job_id)))
 
     def failures(self, job_id: str) -> int:
-        return int(self.r.get(self.keys.failures(job_id)) or 0)
+        return int(self._r.get(self.keys.failures(job_id)) or 0)
 
     def shard_stopped(self, job_id: str) -> int:
         """One shard stopped for good; returns how many are still live (0 → finalize)."""
-        return int(self.r.decr(self.keys.live_shards(job_id)))
+        return int(self._r.decr(self.keys.live_shards(job_id)))
 
     def add_live_shards(self, job_id: str, n: int) -> int:
-        return int(self.r.incrby(self.keys.live_shards(job_id), n))
+        return int(self._r.incrby(self.keys.live_shards(job_id), n))
 
     def live_shards(self, job_id: str) -> int:
-        return int(self.r.get(self.keys.live_shards(job_id)) or 0)
+        return int(self._r.get(self.keys.live_shards(job_id)) or 0)
 
     # ------------------------------------------------------------------ trials
     def record_trial(
@@ -350,37 +439,42 @@ class JobStore:
         )
 
     def trial_rows(self, job_id: str) -> list[dict[str, Any]]:
-        rows = [json.loads(v) for v in self.r.hvals(self.keys.trials(job_id))]
+        rows = [json.loads(v) for v in self._r.hvals(self.keys.trials(job_id))]
         return sorted(rows, key=lambda r: int(r["number"]))
 
     def board(self, job_id: str, limit: int = -1) -> list[dict[str, Any]]:
         """Complete trials, best first (ties broken by trial number)."""
-        ids = self.r.zrevrange(
+        ids = self._r.zrevrange(
             self.keys.board(job_id), 0, limit if limit < 0 else limit - 1, withscores=True
         )
         if not ids:
             return []
-        raw = self.r.hmget(self.keys.trials(job_id), [i for i, _ in ids])
+        raw = self._r.hmget(self.keys.trials(job_id), [i for i, _ in ids])
         rows = [json.loads(v) for v in raw if v is not None]
         return sorted(rows, key=lambda r: (-float(r["score"]), int(r["number"])))
 
     def best_score(self, job_id: str) -> float | None:
-        top = self.r.zrevrange(self.keys.board(job_id), 0, 0, withscores=True)
+        top = self._r.zrevrange(self.keys.board(job_id), 0, 0, withscores=True)
         return float(top[0][1]) if top else None
+
+    def oof(self, job_id: str, number: int) -> bytes | None:
+        """Stored out-of-fold predictions of one trial (``.npy`` bytes), if kept."""
+        blob = self._r.get(self.keys.oof(job_id, number))
+        return None if blob is None else bytes(blob)
 
     def library_members(self, job_id: str, families: Iterable[str]) -> dict[int, bytes]:
         """Stored out-of-fold predictions of the kept candidates of the given families."""
         out: dict[int, bytes] = {}
         for fam in families:
-            for t in self.r.zrange(self.keys.library(job_id, fam), 0, -1):
-                blob = self.r.get(self.keys.oof(job_id, int(t)))
+            for t in self._r.zrange(self.keys.library(job_id, fam), 0, -1):
+                blob = self._r.get(self.keys.oof(job_id, int(t)))
                 if blob is not None:
                     out[int(t)] = blob
         return out
 
     # ------------------------------------------------------------------ artifacts, extras
     def put_artifact(self, job_id: str, name: str, blob: bytes, meta: dict[str, Any]) -> None:
-        pipe = self.r.pipeline(transaction=True)
+        pipe = self._r.pipeline(transaction=True)
         pipe.hset(
             self.keys.artifact(job_id, name), mapping={"blob": blob, "meta": json.dumps(meta)}
         )
@@ -388,20 +482,20 @@ class JobStore:
         pipe.execute()
 
     def get_artifact(self, job_id: str, name: str = "best") -> tuple[bytes, dict[str, Any]] | None:
-        blob, meta = self.r.hmget(self.keys.artifact(job_id, name), ["blob", "meta"])
+        blob, meta = self._r.hmget(self.keys.artifact(job_id, name), ["blob", "meta"])
         if blob is None or meta is None:
             return None
         return bytes(blob), json.loads(meta)
 
     def artifact_names(self, job_id: str) -> list[str]:
-        return sorted(_text(n) for n in self.r.smembers(self.keys.artifacts(job_id)))
+        return sorted(_text(n) for n in self._r.smembers(self.keys.artifacts(job_id)))
 
     def set_extra(self, job_id: str, name: str, value: Any) -> None:
-        self.r.hset(self.keys.extras(job_id), name, json.dumps(value))
+        self._r.hset(self.keys.extras(job_id), name, json.dumps(value))
 
     def extras(self, job_id: str) -> dict[str, Any]:
         return {
-            _text(k): json.loads(v) for k, v in self.r.hgetall(self.keys.extras(job_id)).items()
+            _text(k): json.loads(v) for k, v in self._r.hgetall(self.keys.extras(job_id)).items()
         }
 
     def commit_final(
@@ -420,7 +514,7 @@ class JobStore:
         """
         key = self.keys.job(job_id)
         for _ in range(50):
-            with self.r.pipeline(transaction=True) as pipe:
+            with self._r.pipeline(transaction=True) as pipe:
                 try:
                     pipe.watch(key)
                     done = pipe.hget(key, "committed_epoch")
@@ -471,7 +565,7 @@ class JobStore:
         """
         key = self.keys.job(job_id)
         for _ in range(50):
-            with self.r.pipeline(transaction=True) as pipe:
+            with self._r.pipeline(transaction=True) as pipe:
                 try:
                     pipe.watch(key)
                     cur = JobState(_text(pipe.hget(key, "state") or b"queued"))
@@ -516,24 +610,46 @@ class JobStore:
 
     # ------------------------------------------------------------------ logs, deletion
     def log(self, job_id: str, line: str) -> None:
-        pipe = self.r.pipeline(transaction=False)
+        pipe = self._r.pipeline(transaction=False)
         pipe.rpush(self.keys.logs(job_id), f"{time.strftime('%Y-%m-%d %H:%M:%S')} {line}")
         pipe.ltrim(self.keys.logs(job_id), -LOG_LINES, -1)
         pipe.execute()
 
     def logs(self, job_id: str) -> list[str]:
-        return [_text(x) for x in self.r.lrange(self.keys.logs(job_id), 0, -1)]
+        return [_text(x) for x in self._r.lrange(self.keys.logs(job_id), 0, -1)]
 
     def delete_job(self, job_id: str) -> int:
         """Remove a job's record, trials, journal, predictions and artifacts (not shared data)."""
         self.job(job_id)
         keys = [
             self.keys.job(job_id),
-            *self.r.scan_iter(match=self.keys.job_pattern(job_id), count=1000),
+            *self._r.scan_iter(match=self.keys.job_pattern(job_id), count=1000),
         ]
-        pipe = self.r.pipeline(transaction=True)
+        pipe = self._r.pipeline(transaction=True)
         for k in keys:
             pipe.delete(k)
         pipe.zrem(self.keys.jobs, job_id)
         pipe.execute()
         return len(keys)
+
+
+class JobReader:
+    """What the trial process may read of a job: its record, its table, stored predictions.
+
+    The trial process runs candidate code on the user's table; it gets no way to write.
+    """
+
+    def __init__(self, client: redis.Redis, keys: Keys) -> None:
+        self._store = JobStore(client, keys)
+
+    def job(self, job_id: str) -> dict[str, Any]:
+        return self._store.job(job_id)
+
+    def get_data(self, digest: str) -> bytearray:
+        return self._store.get_data(digest)
+
+    def oof(self, job_id: str, number: int) -> bytes | None:
+        return self._store.oof(job_id, number)
+
+    def library_members(self, job_id: str, families: Iterable[str]) -> dict[int, bytes]:
+        return self._store.library_members(job_id, families)

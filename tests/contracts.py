@@ -9,6 +9,7 @@ reproduces the predictions. Subclass it once per family and set ``family``.
 
 from __future__ import annotations
 
+import time
 from typing import Any, ClassVar
 
 import numpy as np
@@ -205,3 +206,68 @@ class FamilyContract:
             loaded = sio.loads(blob, trusted=list(TRUSTED_TYPES))
             again = metrics.predictions(loaded, X.iloc[N_TRAIN:], task, _classes(task, y))
             assert_array_equal(pred, again)
+
+
+class StoreContract:
+    """What every job store must do, run against a real Redis server (no mocks).
+
+    Subclasses provide a ``store`` fixture; ``tests/unit/test_store.py`` runs it on
+    :class:`tuttiml.service.store.JobStore`.
+    """
+
+    @staticmethod
+    def _job(store: Any, job_id: str = "c1", shards: int = 2) -> str:
+        store.create_job(job_id, {"spec": "{}", "task": "binary", "schema": {}}, shards=shards)
+        return job_id
+
+    def test_tickets_never_exceed_the_budget(self, store: Any) -> None:
+        job = self._job(store)
+        got = [store.take_ticket(job, 3) for _ in range(5)]
+        assert [g is not None for g in got] == [True, True, True, False, False]
+        store.return_ticket(job)
+        assert store.take_ticket(job, 3) is not None
+        assert store.tickets(job) == 3
+
+    def test_claim_field_has_one_winner(self, store: Any) -> None:
+        job = self._job(store)
+        assert [store.claim_field(job, "flag") for _ in range(3)] == [True, False, False]
+        assert store.incr_field(job, "n") == 1
+        assert store.incr_field(job, "n", 4) == 5
+
+    def test_leases_expire_and_drop(self, store: Any) -> None:
+        job = self._job(store)
+        key = store.keys.trial_lease(job, 7)
+        store.hold_lease(key, 1000)
+        assert store.trial_leased(job, 7)
+        store.drop_lease(key)
+        assert not store.trial_leased(job, 7)
+        store.hold_lease(store.keys.shard_lease(job, 0), 1000)
+        store.hold_lease(store.keys.shard_lease(job, 3), 1000)
+        assert store.running_shards(job) == 2
+        time.sleep(1.3)
+        assert store.running_shards(job) == 0
+
+    def test_a_suspicion_is_remembered_until_cleared(self, store: Any) -> None:
+        job = self._job(store)
+        assert store.note_suspicion(job, "finalize", 100.0, 60) is None
+        assert store.note_suspicion(job, "finalize", 130.0, 60) == 100.0
+        store.clear_suspicion(job, "finalize")
+        assert store.note_suspicion(job, "finalize", 140.0, 60) is None
+
+    def test_journal_list_round_trips_and_pickles(self, store: Any) -> None:
+        import pickle
+
+        log = store.journal(self._job(store))
+        log.append(["a", "b", "c"])
+        again = pickle.loads(pickle.dumps(log))  # our own object, in-process only
+        assert again.read(1, 5) == [b"b", b"c"]
+
+    def test_committed_epoch_absent_before_a_commit(self, store: Any) -> None:
+        assert store.committed_epoch(self._job(store)) is None
+
+    def test_worker_heartbeat_expires(self, store: Any) -> None:
+        store.put_worker("w1", {"pid": 1}, ttl=1)
+        names = lambda: [k for k in store._r.scan_iter(match=store.keys.worker_alive("*"))]  # noqa: E731
+        assert len(names()) == 1
+        store.drop_worker("w1")
+        assert names() == []

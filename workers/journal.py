@@ -15,9 +15,9 @@ from collections.abc import Iterator
 from typing import Any
 
 import optuna
-import redis
 from optuna.storages import JournalStorage
 from optuna.storages.journal import BaseJournalBackend
+from tuttiml.service.store import JournalList
 
 READ_BATCH = 2000
 
@@ -26,20 +26,18 @@ class RedisListJournal(BaseJournalBackend):
     """Journal entries as JSON items of one Redis list.
 
     Args:
-        client: Redis client (bytes responses are fine).
-        key: the list key (one per job, from ``service.keys.Keys.journal``).
+        log: the job's journal list (``JobStore.journal``).
     """
 
-    def __init__(self, client: redis.Redis, key: str) -> None:
-        self._client = client
-        self._key = key
+    def __init__(self, log: JournalList) -> None:
+        self._log = log
         self.busy_seconds = 0.0  # time spent talking to Redis (store cost, for benchmarks)
 
     def read_logs(self, log_number_from: int) -> Iterator[dict[str, Any]]:
         start = log_number_from
         while True:
             t0 = time.perf_counter()
-            batch = self._client.lrange(self._key, start, start + READ_BATCH - 1)
+            batch = self._log.read(start, READ_BATCH)
             self.busy_seconds += time.perf_counter() - t0
             for item in batch:
                 yield json.loads(item)
@@ -50,23 +48,12 @@ class RedisListJournal(BaseJournalBackend):
     def append_logs(self, logs: list[dict[str, Any]]) -> None:
         if logs:
             t0 = time.perf_counter()
-            self._client.rpush(self._key, *[json.dumps(log) for log in logs])
+            self._log.append([json.dumps(log) for log in logs])
             self.busy_seconds += time.perf_counter() - t0
 
-    def __getstate__(self) -> dict[str, Any]:
-        state = self.__dict__.copy()
-        state["_url_kwargs"] = self._client.connection_pool.connection_kwargs
-        del state["_client"]
-        return state
 
-    def __setstate__(self, state: dict[str, Any]) -> None:
-        kwargs = state.pop("_url_kwargs")
-        self.__dict__.update(state)
-        self._client = redis.Redis(**kwargs)
-
-
-def journal_storage(client: redis.Redis, key: str) -> JournalStorage:
+def journal_storage(log: JournalList) -> JournalStorage:
     """A JournalStorage over :class:`RedisListJournal` (Optuna's experimental warning muted)."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
-        return JournalStorage(RedisListJournal(client, key))
+        return JournalStorage(RedisListJournal(log))

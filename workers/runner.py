@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import argparse
 import contextlib
-import json
 import logging
 import multiprocessing as mp
 import os
@@ -84,9 +83,7 @@ def _active_jobs(ctx: Any) -> bool:
             st = ctx.store.state(job_id)
             if st in (JobState.QUEUED, JobState.RUNNING, JobState.FINALIZING):
                 return True
-            if st is JobState.CANCELLED and not ctx.store.r.hget(
-                ctx.store.keys.job(job_id), "committed_epoch"
-            ):
+            if st is JobState.CANCELLED and not ctx.store.committed_epoch(job_id):
                 return True
     return False
 
@@ -125,7 +122,7 @@ def worker_main(opts: dict[str, Any]) -> None:
     cls.stop_event = ctx.stop
     worker = cls(
         [ctx.queue.final, ctx.queue.search],
-        connection=ctx.store.r,
+        connection=ctx.queue.connection,
         serializer="json",
         name=ctx.name,
     )
@@ -141,11 +138,7 @@ def worker_main(opts: dict[str, Any]) -> None:
             "updated_at": time.time(),
             **ctx.doing,
         }
-        ctx.store.r.set(
-            ctx.store.keys.worker_alive(ctx.name),
-            json.dumps(doc, default=str),
-            ex=int(3 * HEARTBEAT_SECONDS) + 1,
-        )
+        ctx.store.put_worker(ctx.name, doc, ttl=int(3 * HEARTBEAT_SECONDS) + 1)
 
     def sweeper() -> None:
         interval = min(SWEEP_SECONDS, max(2.0, ctx.settings.lease_seconds))
@@ -177,7 +170,7 @@ def worker_main(opts: dict[str, Any]) -> None:
         ctx.stop.set()
         ctx.trials.close()
         with contextlib.suppress(Exception):
-            ctx.store.r.delete(ctx.store.keys.worker_alive(ctx.name))
+            ctx.store.drop_worker(ctx.name)
 
 
 def parser() -> argparse.ArgumentParser:

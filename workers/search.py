@@ -117,7 +117,7 @@ def make_pruner() -> optuna.pruners.BasePruner:
 
 def open_study(ctx: WorkerContext, job_id: str, seed: int) -> optuna.Study:
     """Create or load the job's study on the Redis journal, with a shard-specific sampler."""
-    storage = journal_storage(ctx.store.r, ctx.store.keys.journal(job_id))
+    storage = journal_storage(ctx.store.journal(job_id))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
         sampler = optuna.samplers.TPESampler(
@@ -157,17 +157,17 @@ class Lease:
     """A Redis key with a short expiry, refreshed by a thread while a trial runs."""
 
     def __init__(self, ctx: WorkerContext, key: str, seconds: float) -> None:
-        self._r, self._key, self._ttl = ctx.store.r, key, max(round(seconds * 1000), 1000)
+        self._store, self._key, self._ttl = ctx.store, key, max(round(seconds * 1000), 1000)
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._beat, daemon=True, name="tutti-lease")
 
     def _beat(self) -> None:
         while not self._stop.wait(self._ttl / 3000.0):
             with contextlib.suppress(Exception):
-                self._r.set(self._key, b"1", px=self._ttl)
+                self._store.hold_lease(self._key, self._ttl)
 
     def __enter__(self) -> Lease:
-        self._r.set(self._key, b"1", px=self._ttl)
+        self._store.hold_lease(self._key, self._ttl)
         self._thread.start()
         return self
 
@@ -175,7 +175,7 @@ class Lease:
         self._stop.set()
         self._thread.join(2)
         with contextlib.suppress(Exception):
-            self._r.delete(self._key)
+            self._store.drop_lease(self._key)
 
 
 class Shard:
@@ -199,7 +199,7 @@ class Shard:
         self.deadlines = Deadlines.of(self.spec, started)
         self.started = started
         self._reserve, self._reserve_at = 0.0, float("-inf")
-        n_slice = int(self.store.r.hincrby(self.store.keys.job(self.job_id), "slices", 1))
+        n_slice = self.store.incr_field(self.job_id, "slices")
         seed = derive_seed(self.spec.seed, self.shard, n_slice)
         self.fctx = context_from_record(self.record, self.spec.seed)
         study = open_study(self.ctx, self.job_id, seed)
@@ -284,7 +284,7 @@ class Shard:
 
     # ----------------------------------------------------------------- trials
     def _enqueue_defaults(self, study: optuna.Study) -> None:
-        if not self.store.r.hsetnx(self.store.keys.job(self.job_id), "defaults_enqueued", 1):
+        if not self.store.claim_field(self.job_id, "defaults_enqueued"):
             return
         for name, params in default_trials(self.spec.family_names, self.fctx):
             study.enqueue_trial({"family": name, **params}, user_attrs={"default": True})
@@ -486,7 +486,7 @@ class Shard:
         reaping right after the restart would fail trials that are still running.
         """
         try:
-            uptime = float(self.store.r.info("server").get("uptime_in_seconds", 1e9))
+            uptime = self.store.server_uptime()
         except Exception:
             return False
         return uptime >= 2 * lease
@@ -502,7 +502,7 @@ class Shard:
             return 0
         n = 0
         for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
-            if self.store.r.exists(self.store.keys.trial_lease(self.job_id, t._trial_id)):
+            if self.store.trial_leased(self.job_id, t._trial_id):
                 continue
             started = t.datetime_start.timestamp() if t.datetime_start else 0.0
             if time.time() - started < 2 * lease:

@@ -17,21 +17,15 @@ log = logging.getLogger(__name__)
 FINALIZE_SHARD = -1
 
 
-def _running_shards(ctx: WorkerContext, job_id: str) -> int:
-    pattern = ctx.store.keys.shard_lease(job_id, 0).rsplit(":", 2)[0] + ":*:lease"
-    return sum(1 for _ in ctx.store.r.scan_iter(match=pattern, count=200))
-
-
 def _suspect(ctx: WorkerContext, job_id: str, what: str) -> bool:
     """True only when the same suspicion was raised at least one lease period ago."""
-    key = f"{ctx.store.keys.job(job_id)}:suspect:{what}"
     now = time.time()
-    first = ctx.store.r.get(key)
+    ttl = int(10 * ctx.settings.lease_seconds) + 10
+    first = ctx.store.note_suspicion(job_id, what, now, ttl)
     if first is None:
-        ctx.store.r.set(key, repr(now), ex=int(10 * ctx.settings.lease_seconds) + 10)
         return False
-    if now - float(first) >= ctx.settings.lease_seconds:
-        ctx.store.r.delete(key)
+    if now - first >= ctx.settings.lease_seconds:
+        ctx.store.clear_suspicion(job_id, what)
         return True
     return False
 
@@ -47,9 +41,9 @@ def sweep(ctx: WorkerContext) -> int:
             continue
         if state.terminal and state is not JobState.CANCELLED:
             continue
-        if state is JobState.CANCELLED and store.r.hget(store.keys.job(job_id), "committed_epoch"):
+        if state is JobState.CANCELLED and store.committed_epoch(job_id):
             continue
-        running = _running_shards(ctx, job_id)
+        running = store.running_shards(job_id)
         queued = queue.queued_for(job_id)
         live = store.live_shards(job_id)
         if state in (JobState.QUEUED, JobState.RUNNING) and live > 0:

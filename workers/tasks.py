@@ -48,7 +48,7 @@ def _shard_crashed(job_id: str, shard: int, exc: Exception) -> str:
     log.error("job %s %s", job_id, text)
     with contextlib.suppress(Exception):
         ctx.store.log(job_id, f"[{ctx.name}] {text}")
-    n = int(ctx.store.r.hincrby(ctx.store.keys.job(job_id), "shard_errors", 1))
+    n = ctx.store.incr_field(job_id, "shard_errors")
     if n <= MAX_SHARD_ERRORS:
         ctx.queue.enqueue_shard(job_id, shard, timeout=3600)
         return "error"

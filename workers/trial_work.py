@@ -22,7 +22,7 @@ from tuttiml.service.connection import connect
 from tuttiml.service.data import parquet_table, table_frame
 from tuttiml.service.keys import Keys
 from tuttiml.service.spec import Metric, SearchSpec
-from tuttiml.service.store import JobStore
+from tuttiml.service.store import JobReader
 from tuttiml.workers import combining, ensembling, metrics
 from tuttiml.workers.datasets import Dataset, build_dataset
 from tuttiml.workers.evaluation import Pruned, cross_validate
@@ -42,12 +42,12 @@ class DataCache:
 
     def __init__(self) -> None:
         self._entry: _Entry | None = None
-        self._clients: dict[str, JobStore] = {}
+        self._clients: dict[str, JobReader] = {}
 
-    def store(self, url: str, prefix: str) -> JobStore:
+    def store(self, url: str, prefix: str) -> JobReader:
         key = f"{prefix}|{url}"
         if key not in self._clients:
-            self._clients[key] = JobStore(connect(url), Keys(prefix))
+            self._clients[key] = JobReader(connect(url), Keys(prefix))
         return self._clients[key]
 
     def get(self, request: dict[str, Any]) -> _Entry:
@@ -171,10 +171,7 @@ def _decision_threshold(request: dict[str, Any], cache: DataCache, entry: _Entry
     if data.task != "binary" or metric not in THRESHOLD_METRICS or data.classes is None:
         return None
     store = cache.store(request["redis_url"], request["prefix"])
-    blobs = [
-        store.r.get(store.keys.oof(request["job_id"], int(m["number"])))
-        for m in request["members"]
-    ]
+    blobs = [store.oof(request["job_id"], int(m["number"])) for m in request["members"]]
     if any(b is None for b in blobs):
         return None
     rows = data.scored_rows

@@ -57,7 +57,7 @@ def wait_until(cond: Callable[[], Any], timeout: float, every: float = 0.2) -> A
 
 
 def _study_states(client: Client, job_id: str) -> list[TrialState]:
-    storage = journal_storage(client.redis, client.keys.journal(job_id))
+    storage = journal_storage(client.store.journal(job_id))
     study = optuna.load_study(study_name=job_id, storage=storage)
     return [t.state for t in study.get_trials(deepcopy=False)]
 

@@ -188,3 +188,17 @@ def test_importing_the_client_pulls_in_no_ml_library() -> None:
         [sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, check=True
     )
     assert out.stdout.strip() == ""
+
+
+@pytest.mark.parametrize(
+    "path",
+    [p for p in _modules("service") + _modules("workers") if p.name != "store.py"],
+    ids=lambda p: p.name,
+)
+def test_only_the_store_touches_the_redis_handle(path: Path) -> None:
+    # The store is sealed: nothing outside service/store.py reaches `store.r` / `store._r`.
+    for node in ast.walk(ast.parse(path.read_text())):
+        if isinstance(node, ast.Attribute) and node.attr in ("r", "_r"):
+            base = node.value
+            name = base.id if isinstance(base, ast.Name) else getattr(base, "attr", "")
+            assert "store" not in name, f"{path.name}:{node.lineno} uses the raw Redis handle"

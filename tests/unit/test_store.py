@@ -9,7 +9,9 @@ import pytest
 from tuttiml.service.connection import connect
 from tuttiml.service.errors import JobNotFoundError
 from tuttiml.service.keys import Keys
-from tuttiml.service.store import JobState, JobStore
+from tuttiml.service.store import JobReader, JobState, JobStore
+
+from tests.contracts import StoreContract
 
 
 @pytest.fixture
@@ -118,7 +120,7 @@ def test_data_blobs_are_chunked_and_content_addressed(store: JobStore) -> None:
     store.put_data("abc", data, chunk_bytes=10_000, progress=lambda a, b: seen.append((a, b)))
     assert store.get_data("abc") == data
     assert len(seen) == 26 and seen[-1] == (len(data), len(data))
-    meta = json.loads(store.r.get(store.keys.data_meta("abc")))
+    meta = json.loads(store._r.get(store.keys.data_meta("abc")))
     assert meta == {"chunks": 26, "bytes": len(data)}
 
 
@@ -132,5 +134,15 @@ def test_delete_job_removes_every_key(store: JobStore) -> None:
     )
     store.log(job, "hello")
     store.delete_job(job)
-    assert list(store.r.scan_iter(match=f"{store.keys.prefix}:job:{job}*")) == []
+    assert list(store._r.scan_iter(match=f"{store.keys.prefix}:job:{job}*")) == []
     assert job not in store.job_ids()
+
+
+class TestJobStore(StoreContract):
+    """The store contract on the Redis store."""
+
+
+def test_reader_offers_no_writes(redis_url: str, prefix: str) -> None:
+    reader = JobReader(connect(redis_url), Keys(prefix))
+    public = {n for n in dir(reader) if not n.startswith("_")}
+    assert public == {"job", "get_data", "oof", "library_members"}
