@@ -341,6 +341,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
         processes=args.processes,
         redis_url=args.redis_url,
         prefix=args.prefix,
+        show_board=_print_board,
     )
 
 

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import sys
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -91,10 +92,10 @@ def run_demo(
     redis_url: str | None = None,
     prefix: str | None = None,
     out: Path = Path("tutti-demo-model.skops"),
+    show_board: Callable[..., None] = print,
 ) -> int:
     """Generate data, start local workers, search, print the board, export and score."""
     from sklearn.metrics import roc_auc_score
-    from tuttiml.service.cli import _print_board
     from tuttiml.service.client import Client
 
     frame = pump_stations()
@@ -130,7 +131,7 @@ def run_demo(
         if st["state"] != "finished":
             print(f"reason: {st.get('reason')}")
             return 1
-        _print_board(job.leaderboard(), limit=12)
+        show_board(job.leaderboard(), limit=12)
         path = job.export(out)
         model = job.best_pipeline()
         auc = roc_auc_score(

@@ -2,13 +2,25 @@
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any
+from typing import Any, Protocol
 
+import pandas as pd
 from tuttiml.service.spec import Metric, natural, score_sign
+from tuttiml.service.store import JobStore
 from tuttiml.service.version import __version__
 
-if TYPE_CHECKING:
-    from tuttiml.service.client import Job
+
+class JobView(Protocol):
+    """What the report reads of a job (``service.client.Job`` provides it)."""
+
+    id: str
+    store: JobStore
+
+    def record(self) -> dict[str, Any]: ...
+    def extras(self) -> dict[str, Any]: ...
+    def leaderboard(self) -> pd.DataFrame: ...
+    def artifact_meta(self) -> dict[str, Any]: ...
+
 
 #: Relative gap between the honest estimate and the hold-out score that earns a warning.
 DISAGREE = 0.05
@@ -29,7 +41,7 @@ def _honest(extras: dict[str, Any]) -> dict[str, Any]:
     return honest
 
 
-def collect(job: Job) -> dict[str, Any]:
+def collect(job: JobView) -> dict[str, Any]:
     """The report's input for ``job`` (see the schema in ``service.report``)."""
     rec = job.record()
     extras = job.extras()

@@ -71,7 +71,7 @@ def honest_winner(members: dict[int, np.ndarray], data: Dataset, metric: Metric)
 
 
 def _build(member: dict[str, Any], data: Dataset, seed: int) -> Any:
-    from tuttiml.workers.trial_work import build_candidate
+    from tuttiml.workers.candidates import build_candidate
 
     return build_candidate(
         get_family(member["family"]), dict(member["params"]), data.context(seed)

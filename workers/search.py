@@ -21,8 +21,9 @@ from typing import Any
 import numpy as np
 import optuna
 from optuna.trial import TrialState
-from tuttiml.service.spec import Metric, SearchSpec
+from tuttiml.service.spec import SearchSpec
 from tuttiml.service.store import JobState
+from tuttiml.workers.candidates import CALIBRATED_METRICS, calibrations
 from tuttiml.workers.child import ChildFailure, TrialCrashed
 from tuttiml.workers.context import WorkerContext
 from tuttiml.workers.datasets import family_context
@@ -30,26 +31,13 @@ from tuttiml.workers.families import get_family
 from tuttiml.workers.families._base import FamilyContext
 from tuttiml.workers.finalize import refit_seconds
 from tuttiml.workers.journal import journal_storage
-from tuttiml.workers.trial_work import oof_bytes
+from tuttiml.workers.oof import oof_bytes
 
 log = logging.getLogger(__name__)
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
 MAX_RETRIES = 2
 CALIBRATION = "calibration"
-CALIBRATIONS = ("none", "sigmoid", "isotonic")
-#: Isotonic calibration overfits small calibration sets; scikit-learn's user guide (section
-#: "Probability calibration") advises it only with more than ~1,000 calibration samples
-#: (from memory). The inner 3-fold split calibrates on a third of the training rows.
-ISOTONIC_MIN_ROWS = 3000
-
-
-def calibrations(n_rows: int) -> tuple[str, ...]:
-    """Calibration choices for a job whose folds train on ``n_rows`` rows."""
-    return CALIBRATIONS if n_rows >= ISOTONIC_MIN_ROWS else ("none", "sigmoid")
-
-
-CALIBRATED_METRICS = frozenset({Metric.LOG_LOSS})
 SLICE_SLACK = 600.0  # RQ job timeout on top of the slice and one trial
 #: Finalize refits the winner and, for a library ensemble, its members: the shards stop early
 #: enough for this many of the best trials' all-rows refits (estimated from their fold fits,

@@ -7,9 +7,6 @@ data from Redis (read-only) and never writes to the store: results go back to th
 from __future__ import annotations
 
 import hashlib
-import io
-import json
-import os
 import time
 import zipfile
 from dataclasses import dataclass
@@ -24,9 +21,13 @@ from tuttiml.service.keys import Keys
 from tuttiml.service.spec import Metric, SearchSpec
 from tuttiml.service.store import JobReader
 from tuttiml.workers import combining, ensembling, metrics
+from tuttiml.workers.candidates import build_candidate, describe_members, refit_candidate
 from tuttiml.workers.datasets import Dataset, build_dataset
 from tuttiml.workers.evaluation import Pruned, cross_validate
 from tuttiml.workers.families import get_family
+from tuttiml.workers.faults import fold_pause, inject_fault
+from tuttiml.workers.oof import oof_array
+from tuttiml.workers.thresholds import decision_threshold
 
 
 @dataclass
@@ -75,13 +76,13 @@ def evaluate(
     family = get_family(request["family"])
     ctx = entry.data.context(int(request["seed"]))
     template = build_candidate(family, dict(request["params"]), ctx)
-    _inject_fault(request)
+    inject_fault(request)
 
-    fold_pause = _fold_pause()
+    pause = fold_pause()
 
     def on_fold(fold: int, score: float) -> bool:
-        if fold_pause:
-            time.sleep(fold_pause)
+        if pause:
+            time.sleep(pause)
         conn.send(("fold", fold, score))
         answer = conn.recv()
         return bool(answer[0] == "go")
@@ -111,133 +112,6 @@ def evaluate(
     }
 
 
-def _short(est: Any) -> str:
-    name = type(est).__name__
-    inner = getattr(est, "estimator", None)
-    if inner is not None and not isinstance(inner, str):
-        return f"{name}({_short(_last_step(inner))})"
-    return name
-
-
-def _last_step(est: Any) -> Any:
-    while isinstance(est, Pipeline):
-        est = est.steps[-1][1]
-    return est
-
-
-def describe_members(est: Any) -> str:
-    """Human-readable members of a candidate: member names for composites, else the model."""
-    model = _last_step(est)
-    members = getattr(model, "estimators", None)
-    if isinstance(members, list) and members and isinstance(members[0], tuple):
-        return ",".join(str(name) for name, m in members if m != "drop")
-    return _short(model)
-
-
-def _inject_fault(request: dict[str, Any]) -> None:
-    """Test-only fault injection (``TUTTI_FAULT_INJECT``): raise, sleep or allocate on cue.
-
-    The variable holds JSON such as ``{"raise": [3], "sleep": {"5": 30}, "alloc_mb": {"7": 4096},
-    "sleep_all": 1.5}`` keyed by trial number; it is read only in the trial process and
-    ignored when unset.
-    """
-    raw = os.environ.get("TUTTI_FAULT_INJECT")
-    if not raw:
-        return
-    plan = json.loads(raw)
-    n = str(request.get("trial"))
-    if n in {str(t) for t in plan.get("raise", [])}:
-        raise RuntimeError(f"injected fault in trial {n}")
-    if n in plan.get("sleep", {}):
-        time.sleep(float(plan["sleep"][n]))
-    if plan.get("sleep_all"):
-        time.sleep(float(plan["sleep_all"]))
-    if n in plan.get("alloc_mb", {}):
-        hog = bytearray(int(plan["alloc_mb"][n]) * 1024 * 1024)
-        hog[::4096] = b"x" * len(hog[::4096])
-
-
-THRESHOLD_METRICS = (Metric.F1, Metric.BALANCED_ACCURACY)
-
-
-def _decision_threshold(request: dict[str, Any], cache: DataCache, entry: _Entry) -> float | None:
-    """For binary label metrics, the probability cut-off that maximises the metric.
-
-    Chosen on the winner's stored out-of-fold predictions (never on rows a model was fitted
-    on; for a library ensemble, its members' combined by the ensemble's rule); the exported
-    pipeline then predicts with that cut-off instead of 0.5.
-    """
-    data, metric = entry.data, Metric(entry.spec.metric)
-    if data.task != "binary" or metric not in THRESHOLD_METRICS or data.classes is None:
-        return None
-    store = cache.store(request["redis_url"], request["prefix"])
-    blobs = [store.oof(request["job_id"], int(m["number"])) for m in request["members"]]
-    if any(b is None for b in blobs):
-        return None
-    rows = data.scored_rows
-    probas = [oof_array(b)[rows].astype(float) for b in blobs]
-    combiner = request.get("combiner")
-    if combiner:  # a library ensemble: its members' out-of-fold rows, combined by its rule
-        probas = [
-            combining.combine_probas(
-                probas,
-                combiner["mode"],
-                combiner.get("weights"),
-                combiner.get("coef"),
-                combiner.get("intercept"),
-            )
-        ]
-    proba = probas[0][:, 1]
-    y = data.y[rows]
-    best_t, best = 0.5, -np.inf
-    for t in np.unique(np.quantile(proba, np.linspace(0.01, 0.99, 99))):
-        labels = np.where(proba >= t, data.classes[1], data.classes[0])
-        value = metrics.score(metric, y, metrics.one_hot(labels, data.classes), data.classes)
-        if value > best:
-            best_t, best = float(t), value
-    return best_t
-
-
-def _fold_pause() -> float:
-    """Test-only: ``{"sleep_fold": seconds}`` in ``TUTTI_FAULT_INJECT`` slows every fold."""
-    raw = os.environ.get("TUTTI_FAULT_INJECT")
-    return float(json.loads(raw).get("sleep_fold", 0.0)) if raw else 0.0
-
-
-def build_candidate(family: Any, params: dict[str, Any], ctx: Any) -> Any:
-    """The family's estimator, wrapped in probability calibration when the trial chose one.
-
-    ``CalibratedClassifierCV`` fits the candidate and its calibration map on an inner 3-fold
-    split of whatever rows it is given, so calibration stays inside each training fold.
-    """
-    method = params.pop("calibration", "none")
-    est = family.build(params, ctx)
-    scores_rows = hasattr(est, "predict_proba") or hasattr(est, "decision_function")
-    # a label-only model (hard vote) has nothing to calibrate: it is scored as it is
-    if method in ("sigmoid", "isotonic") and ctx.is_classification and scores_rows:
-        from sklearn.calibration import CalibratedClassifierCV
-
-        est = CalibratedClassifierCV(est, method=method, cv=3)
-    return est
-
-
-def _candidate(member: dict[str, Any], data: Dataset, seed: int) -> Any:
-    """Build one candidate and apply the stated refit rule for boosting rounds."""
-    family = get_family(member["family"])
-    ctx = data.context(seed)
-    est = build_candidate(family, dict(member["params"]), ctx)
-    per_path: dict[str, list[int]] = {}
-    for info in member.get("fit_info") or []:
-        for path, rounds in info.items():
-            per_path.setdefault(path, []).append(int(rounds))
-    if per_path:
-        n_all = len(data.search_rows)
-        est.set_params(
-            **{p: ensembling.refit_rounds(v, ctx.n_rows, n_all) for p, v in per_path.items()}
-        )
-    return est
-
-
 def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     """Fit the chosen candidate (or library ensemble) on all search rows; return skops bytes."""
     import skops.io as sio
@@ -248,7 +122,7 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     members = request["members"]
     combiner = request.get("combiner")
     if combiner:
-        estimators = [(f"t{m['number']}", _candidate(m, data, seed)) for m in members]
+        estimators = [(f"t{m['number']}", refit_candidate(m, data, seed)) for m in members]
         cls = (
             combining.LinearCombinerRegressor
             if data.task == "regression"
@@ -262,11 +136,13 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
             intercept=combiner.get("intercept"),
         )
     else:
-        model = _candidate(members[0], data, seed)
+        model = refit_candidate(members[0], data, seed)
     pipe: Any = Pipeline(
         [("frame", ensembling.FrameNormalizer(schema=data.schema)), ("model", model)]
     )
-    threshold = _decision_threshold(request, cache, entry)
+    threshold = decision_threshold(
+        request, cache.store(request["redis_url"], request["prefix"]), entry.data, entry.spec
+    )
     if threshold is not None and not hasattr(pipe, "predict_proba"):
         threshold = None  # a label-only winner (hard vote) keeps its own labels
     if threshold is not None:
@@ -414,15 +290,4 @@ def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     return out
 
 
-def oof_bytes(oof: np.ndarray) -> bytes:
-    """Out-of-fold predictions as ``.npy`` bytes (read back with ``allow_pickle=False``)."""
-    buf = io.BytesIO()
-    np.save(buf, np.ascontiguousarray(oof, dtype=np.float32), allow_pickle=False)
-    return buf.getvalue()
-
-
-def oof_array(blob: bytes) -> np.ndarray:
-    return np.load(io.BytesIO(blob), allow_pickle=False)
-
-
-__all__ = ["DataCache", "evaluate", "oof_array", "oof_bytes", "refit"]
+__all__ = ["DataCache", "evaluate", "explain", "library", "refit"]

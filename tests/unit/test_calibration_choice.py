@@ -6,7 +6,7 @@ import numpy as np
 from sklearn.calibration import CalibratedClassifierCV
 from sklearn.datasets import load_breast_cancer
 from sklearn.naive_bayes import GaussianNB
-from tuttiml.workers.search import ISOTONIC_MIN_ROWS, calibrations
+from tuttiml.workers.candidates import ISOTONIC_MIN_ROWS, calibrations
 
 
 def test_isotonic_is_offered_only_with_enough_rows() -> None:

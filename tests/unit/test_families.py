@@ -374,7 +374,7 @@ def test_calibration_leaves_a_hard_vote_as_it_is() -> None:
     CalibratedClassifierCV to calibrate (scikit-learn refuses it); the candidate is built and
     scored uncalibrated instead of failing the trial."""
     from sklearn.calibration import CalibratedClassifierCV
-    from tuttiml.workers.trial_work import build_candidate
+    from tuttiml.workers.candidates import build_candidate
 
     X, y, ctx = family_data("multiclass")
     fam = get_family("voting")

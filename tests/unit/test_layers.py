@@ -202,3 +202,71 @@ def test_only_the_store_touches_the_redis_handle(path: Path) -> None:
             base = node.value
             name = base.id if isinstance(base, ast.Name) else getattr(base, "attr", "")
             assert "store" not in name, f"{path.name}:{node.lineno} uses the raw Redis handle"
+
+
+def _import_graph() -> dict[str, set[str]]:
+    """Module -> tutti modules it imports anywhere (function bodies included)."""
+    paths = _modules("service") + _modules("workers") + _modules(NS)
+    names = {_module_name(p): p for p in paths}
+    graph: dict[str, set[str]] = {}
+    for name, path in names.items():
+        edges: set[str] = set()
+        tree = ast.parse(path.read_text())
+        for node in ast.walk(tree):
+            if isinstance(node, ast.ImportFrom):
+                base = _absolute(node, name, path.stem == "__init__")
+                for alias in node.names:
+                    sub = f"{base}.{alias.name}"
+                    edges.add(sub if sub in names else base)
+            elif isinstance(node, ast.Import):
+                edges.update(a.name for a in node.names)
+        graph[name] = {e for e in edges if e in names and e != name}
+    return graph
+
+
+def _cycles(graph: dict[str, set[str]]) -> list[list[str]]:
+    """Strongly connected components with more than one module (Tarjan)."""
+    index: dict[str, int] = {}
+    low: dict[str, int] = {}
+    stack: list[str] = []
+    on: set[str] = set()
+    out: list[list[str]] = []
+
+    def visit(v: str) -> None:
+        index[v] = low[v] = len(index)
+        stack.append(v)
+        on.add(v)
+        for w in sorted(graph[v]):
+            if w not in index:
+                visit(w)
+                low[v] = min(low[v], low[w])
+            elif w in on:
+                low[v] = min(low[v], index[w])
+        if low[v] == index[v]:
+            comp = []
+            while True:
+                w = stack.pop()
+                on.discard(w)
+                comp.append(w)
+                if w == v:
+                    break
+            if len(comp) > 1:
+                out.append(sorted(comp))
+
+    for v in sorted(graph):
+        if v not in index:
+            visit(v)
+    return out
+
+
+def test_cycle_finder_sees_a_circle() -> None:
+    assert _cycles({"a": {"b"}, "b": {"c"}, "c": {"a"}, "d": {"a"}}) == [["a", "b", "c"]]
+
+
+def test_no_import_circles() -> None:
+    # Package __init__ files re-export their modules; only module-to-module circles count.
+    graph = {
+        k: {e for e in v if not e.endswith(("tuttiml", ".service", ".workers"))}
+        for k, v in _import_graph().items()
+    }
+    assert _cycles(graph) == []

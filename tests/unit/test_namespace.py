@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import shutil
 import subprocess
 import sys
 import zipfile
@@ -76,23 +77,15 @@ def test_legacy_rewrite_leaves_other_archives_alone() -> None:
 
 @pytest.fixture(scope="module")
 def wheel_files(tmp_path_factory: pytest.TempPathFactory) -> list[str]:
+    # Build from a copy of the sources, so no build/ or egg-info lands in the checkout.
+    src = tmp_path_factory.mktemp("src")
+    for name in ("pyproject.toml", "README.md"):
+        shutil.copy(ROOT / name, src / name)
+    for name in ("service", "workers", "tuttiml"):
+        shutil.copytree(ROOT / name, src / name, ignore=shutil.ignore_patterns("__pycache__"))
     out = tmp_path_factory.mktemp("wheel")
-    subprocess.run(
-        [
-            sys.executable,
-            "-m",
-            "pip",
-            "wheel",
-            "--no-deps",
-            "--no-build-isolation",
-            "-q",
-            "-w",
-            str(out),
-            str(ROOT),
-        ],
-        check=True,
-        capture_output=True,
-    )
+    cmd = [sys.executable, "-m", "pip", "wheel", "--no-deps", "--no-build-isolation", "-q"]
+    subprocess.run([*cmd, "-w", str(out), str(src)], check=True, capture_output=True)
     (whl,) = out.glob("tuttiml-*.whl")
     with zipfile.ZipFile(whl) as z:
         return z.namelist()
