@@ -12,7 +12,8 @@ from typing import Any
 
 import numpy as np
 from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin, clone
-from sklearn.utils.validation import check_is_fitted
+from sklearn.utils import get_tags
+from sklearn.utils.validation import check_is_fitted, column_or_1d
 
 # Exported files record this path (see tuttiml/estimators.py); keep it when moving code.
 STABLE_MODULE = "tuttiml.estimators"
@@ -55,6 +56,7 @@ class _Combiner(BaseEstimator):
     def fit(self, X: Any, y: Any) -> _Combiner:
         """Fit every member on all rows; the combination itself was learned beforehand."""
         self._check()
+        y = column_or_1d(y, warn=True)
         self.estimators_ = [clone(est).fit(X, y) for _, est in self.estimators]
         self.n_features_in_ = getattr(self.estimators_[0], "n_features_in_", None)
         if hasattr(X, "columns"):
@@ -63,6 +65,14 @@ class _Combiner(BaseEstimator):
 
     def _member_outputs(self, X: Any) -> list[np.ndarray]:
         raise NotImplementedError
+
+    def __sklearn_tags__(self) -> Any:
+        # sparse input works exactly when every member takes it (as scikit-learn's voting does)
+        tags = super().__sklearn_tags__()
+        tags.input_tags.sparse = all(
+            get_tags(est).input_tags.sparse for _, est in self.estimators if est != "drop"
+        )
+        return tags
 
 
 def combine_probas(
@@ -112,6 +122,7 @@ class LinearCombinerClassifier(ClassifierMixin, _Combiner):
         return combine_probas(probas, self.mode, self.weights, self.coef, self.intercept)
 
     def predict(self, X: Any) -> np.ndarray:
+        check_is_fitted(self)
         return self.classes_[np.argmax(self.predict_proba(X), axis=1)]
 
 
