@@ -94,6 +94,8 @@ class Client:
             "task": prepared.task,
             "schema": prepared.schema,
             "classes": list(prepared.classes),
+            "labels": list(prepared.labels),
+            "label_dtype": prepared.label_dtype or "",
             "columns": {
                 "numeric": list(prepared.numeric_columns),
                 "categorical": list(prepared.categorical_columns),

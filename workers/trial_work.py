@@ -112,6 +112,29 @@ def evaluate(
     }
 
 
+def _in_user_labels(pipe: Any, data: Dataset, record: dict[str, Any]) -> tuple[Any, np.ndarray]:
+    """The estimator to export and the target to fit it on: the user's labels when they differ.
+
+    The search scores normalised class labels (0/1 for a boolean target, ints for whole-number
+    floats); an exported classifier must answer in the user's own labels and dtype, so it is
+    wrapped in :class:`~workers.ensembling.UserLabels` and fitted on those labels.
+    """
+    labels, dtype = record.get("labels") or [], record.get("label_dtype") or ""
+    if data.classes is None or not dtype or len(labels) != len(data.classes):
+        return pipe, data.y
+    classes = data.classes.tolist()
+    same = (
+        all(type(a) is type(b) and a == b for a, b in zip(labels, classes, strict=True))
+        and np.dtype(dtype) == data.y.dtype
+    )
+    if same:
+        return pipe, data.y
+    wrapper = ensembling.UserLabels(pipe, classes=classes, labels=list(labels), dtype=dtype)
+    user = np.empty(len(labels), dtype=object)
+    user[:] = list(labels)
+    return wrapper, user[np.searchsorted(data.classes, data.y)]
+
+
 def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     """Fit the chosen candidate (or library ensemble) on all search rows; return skops bytes."""
     import skops.io as sio
@@ -150,12 +173,15 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
 
         pipe = FixedThresholdClassifier(pipe, threshold=threshold, response_method="predict_proba")
     rows = data.search_rows
+    exported, y_fit = _in_user_labels(pipe, data, entry.record)
     t0 = time.perf_counter()
-    pipe.fit(data.X.iloc[rows], data.y[rows])
+    exported.fit(data.X.iloc[rows], y_fit[rows])
     fit_seconds = time.perf_counter() - t0
+    if exported is not pipe:
+        pipe = exported.estimator_  # the fitted pipeline, in the labels the search scores
     sample = data.X.iloc[rows[: min(1000, len(rows))]]
     t1 = time.perf_counter()
-    pipe.predict(sample)
+    exported.predict(sample)
     predict_ms = (time.perf_counter() - t1) * 1000.0 * 1000.0 / max(len(sample), 1)
     holdout = None
     hold = data.holdout_rows
@@ -167,7 +193,7 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
         else:
             pred = metrics.predictions(pipe, X_hold, data.task, data.classes)
         holdout = metrics.natural_score(Metric(spec.metric), data.y[hold], pred, data.classes)
-    blob = sio.dumps(pipe, compression=zipfile.ZIP_DEFLATED)
+    blob = sio.dumps(exported, compression=zipfile.ZIP_DEFLATED)
     return {
         "blob": blob,
         "sha256": hashlib.sha256(blob).hexdigest(),
