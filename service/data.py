@@ -960,15 +960,16 @@ def summary(prepared: Prepared) -> dict[str, Any]:
 
     Holds the row count, target, task and metric, feature columns by kind
     (``columns["high_cardinality"]`` is what the workers read), missing share per feature,
-    dropped columns, class balance and base rate (classification) or target statistics
-    (regression), and the warnings.
+    dropped columns, class balance (records of the user's label, row count and share) and base
+    rate (classification) or target statistics (regression), and the warnings.
     """
     frame, spec = prepared.frame, prepared.spec
     y = frame[spec.target]
     n, counts = max(prepared.n_rows, 1), Counter(_label(v) for v in y.to_numpy())
-    balance = [
-        {"label": c, "count": counts[c], "share": round(counts[c] / n, 6)}
-        for c in prepared.classes
+    labels = prepared.labels if len(prepared.labels) == len(prepared.classes) else prepared.classes
+    balance = [  # the one shape of class_balance: service.report reads these records
+        {"label": label, "count": counts[c], "share": round(counts[c] / n, 6)}
+        for c, label in zip(prepared.classes, labels, strict=True)
     ]
     stats = None
     if not prepared.classes:  # regression: the target's spread instead of class balance

@@ -17,8 +17,8 @@ is left out, so a job that has just started still renders::
      "spec": {field: value, ...},      # the search spec, shown as a definition list
      "summary": {"rows": int,
                  "columns": {"numeric": [...], "categorical": [...], "high_cardinality": [...]},
-                 "missing_share": {column: share},          # 0..1
-                 "class_balance": {label: share},           # classification
+                 "missing_share": {column: share},          # 0..1, every feature
+                 "class_balance": [{"label", "count", "share"}],  # classification
                  "base_rate": float | null,                 # binary classification
                  "target_stats": {name: value} | null,      # regression
                  "warnings": [str, ...]},
@@ -739,15 +739,33 @@ def _summary_tables(s: Mapping[str, Any]) -> list[str]:
         out.append("<h3>Columns by type</h3>" + _table(["type", "count", "columns"], body, {1}))
     missing = s.get("missing_share")
     if isinstance(missing, Mapping) and missing:
-        top = sorted(missing.items(), key=lambda kv: -(_num(kv[1]) or 0))[:20]
-        label = "Missing values (top 20 columns)" if len(missing) > 20 else "Missing values"
-        body = [[_e(c), _share_bar(v)] for c, v in top]
-        out.append(f"<h3>{label}</h3>" + _table(["column", "missing share"], body, set()))
-    balance = s.get("class_balance")
-    if isinstance(balance, Mapping) and balance:
-        body = [[_e(k), _share_bar(v)] for k, v in balance.items()]
-        out.append("<h3>Class balance</h3>" + _table(["class", "share"], body, set()))
+        out.append(_missing_table(missing))
+    balance = [r for r in _rows(s, "class_balance") if "label" in r]
+    if balance:
+        body = [
+            [_e(r["label"]), _e(_fmt_count(r.get("count"))), _share_bar(r.get("share"))]
+            for r in balance
+        ]
+        out.append("<h3>Class balance</h3>" + _table(["class", "rows", "share"], body, {1}))
     return out
+
+
+def _fmt_count(value: Any) -> str:
+    number = _num(value)
+    return "–" if number is None else f"{number:,.0f}"
+
+
+def _missing_table(missing: Mapping[str, Any]) -> str:
+    """Columns that have missing values, most first (top 20), or a line saying none has any."""
+    gaps = [(c, v) for c, v in missing.items() if (_num(v) or 0) > 0]
+    if not gaps:
+        none = f"None of the {len(missing)} feature columns has missing values."
+        return f"<h3>Missing values</h3><p>{none}</p>"
+    top = sorted(gaps, key=lambda kv: -(_num(kv[1]) or 0))[:20]
+    label = "Missing values (top 20 columns)" if len(gaps) > 20 else "Missing values"
+    note = f"<p>{len(gaps)} of {len(missing)} feature columns have missing values.</p>"
+    body = [[_e(c), _share_bar(v)] for c, v in top]
+    return f"<h3>{label}</h3>{note}" + _table(["column", "missing share"], body, set())
 
 
 def _data_summary(data: Mapping[str, Any], ctx: _Ctx) -> str:
