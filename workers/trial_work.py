@@ -265,6 +265,20 @@ def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
     return out
 
 
+def leakage(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
+    """The leakage checks on the job's table, run in full (cheap: a small tree per column)."""
+    from tuttiml.workers import explain as ex
+
+    entry = cache.get(request)
+    return ex.leakage_report(
+        entry.data,
+        Metric(entry.spec.metric),
+        request.get("dropped") or {},
+        entry.spec.seed,
+        ex.Budget(float("inf")),
+    )
+
+
 def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     """Honest estimate, significance, bias/variance, diagnostics and leakage (time-bounded)."""
     from tuttiml.workers import explain as ex
@@ -288,14 +302,11 @@ def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     )
     cand_scores = {c["id"]: float(c["score"]) for c in top if "score" in c}
     total = budget.left()
+    if request.get("leakage_needed"):  # normally done before the search; never skipped
+        out["leakage"] = leakage(request, cache)
     parts = (  # cheapest first; each part may use its share of the budget, never more
-        (
-            "leakage",
-            0.15,
-            lambda b: ex.leakage_report(data, metric, request.get("dropped") or {}, seed, b),
-        ),
-        ("significance", 0.45, lambda b: ex.significance(top, data, metric, seed, b)),
-        ("bias_variance", 0.2, lambda b: ex.bias_variance_top(top, data, seed, b)),
+        ("significance", 0.55, lambda b: ex.significance(top, data, metric, seed, b)),
+        ("bias_variance", 0.25, lambda b: ex.bias_variance_top(top, data, seed, b)),
         (
             "composites",
             0.2,
@@ -305,14 +316,21 @@ def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     # each part does at least its first item (the winner, or #1 against #2), unless the job's
     # deadline left too little time for explanations that fit models at all
     fits_allowed = bool(request.get("fits_allowed", True))
+    out["not_run"] = {}
     for name, share, part in parts:
         if not fits_allowed:
             out[name] = []
             out["skipped"].append(name)
+            out["not_run"][name] = "the job's deadline left too little time for refits"
             continue
         out[name] = part(ex.Budget(min(budget.left(), share * total)))
         if not out[name] and name != "composites":
             out["skipped"].append(name)
+            out["not_run"][name] = (
+                "only one candidate, nothing to compare with"
+                if name == "significance" and len(top) < 2
+                else "no time left in its share of the explanation budget"
+            )
     return out
 
 

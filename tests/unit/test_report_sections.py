@@ -1,4 +1,4 @@
-"""Report sections fed by what the job side really writes."""
+"""Report sections fed by what the job side really writes, and checks that did not run."""
 
 from __future__ import annotations
 
@@ -8,6 +8,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+import pytest
 from sklearn.datasets import load_breast_cancer, load_iris
 from tuttiml.service.data import prepare, summary
 from tuttiml.service.report import render_report
@@ -64,3 +65,50 @@ def test_missing_values_says_so_when_no_column_has_any() -> None:
     data = _section(_page(summary=_summary_of(frame, "target")), "data")
     assert "None of the 4 feature columns has missing values." in data
     assert not re.search(r">0\.0%", data)
+
+
+def test_a_leakage_check_that_did_not_run_is_never_shown_as_clean() -> None:
+    page = _page(leakage=None, not_run={"leakage": "the job stopped before the checks ran"})
+    leakage = _section(page, "leakage")
+    assert "Not run:</b> the job stopped before the checks ran." in leakage
+    assert "nothing" not in leakage
+    ran = _section(_page(leakage=[]), "leakage")
+    assert "ran and found nothing to report" in ran
+
+
+@pytest.mark.parametrize(
+    ("part", "anchor", "data"),
+    [
+        ("bias_variance", "bias-variance", {}),
+        ("honest", "honest", {}),
+        (
+            "significance",
+            "leaderboard",
+            {"leaderboard": [{"rank": 1, "candidate": "t1", "family": "boosting"}]},
+        ),
+    ],
+)
+def test_explanations_that_did_not_run_say_so(part: str, anchor: str, data: dict) -> None:
+    page = _page(**data, not_run={part: "no time left"})
+    assert "not run:</b> no time left." in _section(page, anchor).lower()
+
+
+def test_the_old_skipped_leakage_record_reads_as_not_run() -> None:
+    from tuttiml.service.report_data import _explain_gaps, _leakage
+
+    # what finalize stored when a short job skipped the checks: an empty list plus "skipped"
+    explain = {"leakage": [], "skipped": ["leakage", "significance"], "significance": []}
+    found, why = _leakage({"state": "finished"}, {"explain": explain})
+    assert found is None and "skipped for lack of time" in why
+    found, why = _leakage({"state": "finished"}, {"leakage": {"findings": []}})
+    assert found == [] and why == ""
+    found, why = _leakage({"state": "finished"}, {"leakage": {"error": "killed"}})
+    assert found is None and why == "killed"
+    gaps = _explain_gaps({"state": "finished"}, explain)
+    assert gaps == {"significance": "skipped for lack of time"}
+    assert set(_explain_gaps({"state": "finished"}, {"error": "boom"})) == {
+        "honest",
+        "significance",
+        "bias_variance",
+        "composites",
+    }
