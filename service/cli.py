@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import os
 import sys
@@ -11,6 +12,8 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any, TextIO
 
+from redis.exceptions import ConnectionError as RedisConnectionError
+from redis.exceptions import TimeoutError as RedisTimeoutError
 from tuttiml.service.errors import EnsembleSearchError, InvalidSpecError
 
 #: Tables whose Parquet bytes reach this size get an upload progress bar (one store chunk).
@@ -65,8 +68,18 @@ def cmd_submit(args: argparse.Namespace) -> int:
     job = client.submit(args.data, **fields, upload_progress=_upload_bar(sys.stderr))
     print(job.id)
     if args.wait:
-        job.wait(progress=True)
-        _print_board(job.leaderboard(), limit=10)
+        status = job.wait(progress=True)
+        board = job.leaderboard()
+        if len(board):
+            _print_board(board, limit=10)
+        if status["state"] != "finished":  # failed or cancelled: scripts must see it
+            reason = status.get("reason") or status.get("stop_reason") or "no reason recorded"
+            print(
+                f"tutti: job {job.id} ended {status['state']}: {reason}; "
+                f"see `tutti logs {job.id}`",
+                file=sys.stderr,
+            )
+            return 1
     return 0
 
 
@@ -478,19 +491,43 @@ def main(argv: list[str] | None = None) -> int:
         return cmd_worker(args, rest)
     args = parser.parse_args(argv)
     try:
-        return int(args.func(args) or 0)
+        code = int(args.func(args) or 0)
+        sys.stdout.flush()  # a closed pipe shows here, inside the handlers below
+        return code
     except EnsembleSearchError as exc:
         print(f"tutti: error: {exc}", file=sys.stderr)
         return 2
-    except ConnectionError as exc:  # redis' ConnectionError subclasses the builtin one
+    except BrokenPipeError:  # the reader went away (`tutti leaderboard J --json | head`)
+        return _reader_gone()
+    except (ConnectionError, RedisConnectionError, RedisTimeoutError) as exc:
+        # redis' own ConnectionError is not the builtin one: both end here, without traceback
         print(
-            f"tutti: error: cannot reach Redis ({exc}); check TUTTI_REDIS_URL / --redis-url "
-            "and that the server runs (`tutti doctor`).",
+            f"tutti: error: cannot reach Redis at {_where(args)} ({exc}); start that server or "
+            "point TUTTI_REDIS_URL / --redis-url at one that runs (`tutti doctor` checks it).",
             file=sys.stderr,
         )
         return 2
     except KeyboardInterrupt:
         return 130
+
+
+def _where(args: argparse.Namespace) -> str:
+    """The Redis a command talked to, for messages (password masked)."""
+    from tuttiml.service.connection import masked_url
+
+    url = getattr(args, "redis_url", None) or os.environ.get("TUTTI_REDIS_URL")
+    return masked_url(url) if url else "the embedded server (`tutti server status`)"
+
+
+def _reader_gone() -> int:
+    """Exit quietly when stdout's reader closed the pipe, as other command-line tools do.
+
+    stdout is pointed at /dev/null so the interpreter's final flush does not fail again.
+    """
+    with contextlib.suppress(OSError, ValueError):
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    return 141  # 128 + SIGPIPE, what a shell reports for a writer killed by the signal
 
 
 if __name__ == "__main__":

@@ -14,7 +14,7 @@ import pandas as pd
 from tuttiml.service import data as tables
 from tuttiml.service.artifacts import load_pipeline, write_export
 from tuttiml.service.config import Settings
-from tuttiml.service.connection import connect, resolve_url
+from tuttiml.service.connection import connect, masked_url, resolve_url
 from tuttiml.service.errors import ArtifactError, JobStateError
 from tuttiml.service.keys import Keys, check_id
 from tuttiml.service.queue import TaskQueue
@@ -53,7 +53,7 @@ class Client:
         self.settings = Settings.from_env(redis_url=url, prefix=prefix, home=home)
         self.url = resolve_url(self.settings)
         self.keys = Keys(self.settings.prefix)
-        self.redis = connect(self.url)
+        self.redis = connect(self.url, require_up=True)
         self.store = JobStore(self.redis, self.keys)
         self.queue = TaskQueue(self.redis, self.keys)
 
@@ -94,6 +94,8 @@ class Client:
             "task": prepared.task,
             "schema": prepared.schema,
             "classes": list(prepared.classes),
+            "labels": list(prepared.labels),
+            "label_dtype": prepared.label_dtype or "",
             "columns": {
                 "numeric": list(prepared.numeric_columns),
                 "categorical": list(prepared.categorical_columns),
@@ -252,6 +254,9 @@ class Job:
     ) -> dict[str, Any]:
         """Block until the job is final; with ``progress`` draw a one-line progress bar.
 
+        While the job needs a worker and none is alive on this store for ``NO_WORKER_SECONDS``,
+        a line on ``stream`` (default stderr) says so and how to start one; waiting goes on.
+
         Raises:
             TimeoutError: ``timeout`` seconds passed first.
         """
@@ -259,12 +264,16 @@ class Job:
         tty = bool(getattr(stream, "isatty", lambda: False)())
         end = None if timeout is None else time.monotonic() + timeout
         last, last_at = "", 0.0
+        watch = _WorkerWatch(self.client)
         while True:
             st = self.status()
             final = JobState(st["state"]).terminal and (
                 st["state"] != JobState.CANCELLED.value
                 or self.record().get("committed_epoch") is not None
             )
+            if not final and watch.nobody_for_long(st["state"]):
+                stream.write(("\n" if progress and tty else "") + watch.message() + "\n")
+                stream.flush()
             if progress:
                 line = progress_line(st)
                 if tty:
@@ -480,6 +489,48 @@ class Job:
         for shard in range(new.parallelism):
             self.client.queue.enqueue_shard(self.id, shard, timeout=timeout)
         return self
+
+
+#: A job that needs a worker and has had none alive this long gets a line saying so.
+NO_WORKER_SECONDS = 5.0
+_NEEDS_WORKER = frozenset({"queued", "running", "finalizing"})
+
+
+class _WorkerWatch:
+    """Notices, while a job waits, that no worker is alive on the store (says so once)."""
+
+    def __init__(self, client: Client, every: float = 1.0) -> None:
+        self.client, self.every = client, every
+        self.alone_since: float | None = None
+        self.checked_at = float("-inf")
+        self.told = False
+
+    def nobody_for_long(self, state: str) -> bool:
+        """True once per spell of ``NO_WORKER_SECONDS`` without a live worker."""
+        now = time.monotonic()
+        if state not in _NEEDS_WORKER:
+            self.alone_since = None
+            return False
+        if now - self.checked_at >= self.every:
+            self.checked_at = now
+            if self.client.workers():
+                self.alone_since, self.told = None, False
+            elif self.alone_since is None:
+                self.alone_since = now
+        if self.told or self.alone_since is None or now - self.alone_since < NO_WORKER_SECONDS:
+            return False
+        self.told = True
+        return True
+
+    def message(self) -> str:
+        settings = self.client.settings
+        where = "" if not settings.redis_url else f" --redis-url {masked_url(settings.redis_url)}"
+        prefix = "" if settings.prefix == Settings().prefix else f" --prefix {settings.prefix}"
+        return (
+            f"tutti: no worker is alive on this store ({masked_url(self.client.url)}, prefix "
+            f"{settings.prefix!r}), so the job waits; start one on any machine that reaches it: "
+            f"`tutti{where}{prefix} worker --processes 2` (still waiting)"
+        )
 
 
 def _with_explanations(board: pd.DataFrame, explain: dict[str, Any]) -> pd.DataFrame:

@@ -101,6 +101,12 @@ class Prepared:
         warnings: things the user should know that did not stop the job.
         dropped: column -> why it is not a feature.
         n_rows: number of rows in ``frame``.
+        labels: classification only: the user's own label of each of ``classes``, as it was
+            in their column (``False``/``True`` for a boolean target, ``1.0`` for a float one,
+            ``3`` for a category of numbers), so predictions can give them back.
+        label_dtype: numpy dtype name of the predictions that give back ``labels``
+            (``"bool"``, ``"int32"``, ``"float64"``, ``"object"``…); None for regression or
+            when a label has no plain JSON form (predictions then give the normalised labels).
     """
 
     frame: pd.DataFrame
@@ -115,6 +121,8 @@ class Prepared:
     warnings: list[str]
     dropped: dict[str, str]
     n_rows: int
+    labels: list[Any] = field(default_factory=list)
+    label_dtype: str | None = None
 
 
 @dataclass(frozen=True)
@@ -414,9 +422,15 @@ def prepare(df: pd.DataFrame, spec: SearchSpec) -> Prepared:
     frame, report = _normalize(df)
     frame = _check_named_columns(frame, spec, report)
     task: Task | None = None
+    users: _UserLabels | None = None
     if spec.target in frame.columns:
+        kept = frame[spec.target].notna().to_numpy()
         frame = _drop_missing_target(frame, spec.target, report)
-        task = _resolve_task(frame[spec.target], spec, report) if len(frame) else None
+        n_problems = len(report.problems)
+        if len(frame):  # labels that merge would also read as fewer classes: check them first
+            users = _user_labels(_raw_column(df, spec.target)[kept], frame[spec.target], report)
+        if len(frame) and len(report.problems) == n_problems:
+            task = _resolve_task(frame[spec.target], spec, report)
     resolved = _resolve_metric(spec, task, report)
     features = _select_features(frame, spec, report)
     if spec.target in frame.columns and len(frame):
@@ -425,7 +439,7 @@ def prepare(df: pd.DataFrame, spec: SearchSpec) -> Prepared:
     report.raise_problems()
     if task is None or resolved is None:  # pragma: no cover - each such path records a problem
         raise RuntimeError("internal error: task unresolved although no problem was recorded")
-    return _build(frame, features, resolved, task, report)
+    return _build(frame, features, resolved, task, report, users)
 
 
 def _check_named_columns(frame: pd.DataFrame, spec: SearchSpec, report: _Report) -> pd.DataFrame:
@@ -541,6 +555,82 @@ def _task_mismatch(task: Task, y: pd.Series, whole: bool, guess: Task, n: int) -
     if task is Task.MULTICLASS and numeric and not whole:
         return f"'multiclass' needs class labels, but {target!r} holds fractions ({seen}); {fix}"
     return None
+
+
+@dataclass(frozen=True)
+class _UserLabels:
+    """The user's own label behind each normalised class label, and their column's dtype."""
+
+    by_class: dict[Any, Any]
+    dtype: str
+
+
+def _raw_column(df: pd.DataFrame, name: str) -> pd.Series:
+    """The user's column ``name`` (matched as str, first wins), on a fresh RangeIndex."""
+    position = next(i for i, c in enumerate(df.columns) if str(c) == name)
+    return df.iloc[:, position].reset_index(drop=True)
+
+
+def _user_labels(raw: pd.Series, y: pd.Series, report: _Report) -> _UserLabels | None:
+    """Map each class the workers see back to the user's label; refuse labels that merge.
+
+    Normalising reads 1 and "1" in one object column both as the class "1" (and 1.0 and
+    "1.0" alike): the table would silently lose a class. Such labels are a problem naming
+    the target. Returns None when a label has no plain JSON form (then predictions give the
+    normalised labels).
+    """
+    target = str(y.name)
+    values = raw.astype(object).to_numpy() if isinstance(raw.dtype, pd.CategoricalDtype) else raw
+    originals = np.asarray(values, dtype=object)
+    codes, uniques = pd.factorize(originals)  # by value and type: 1 and "1" stay apart
+    first = np.unique(codes, return_index=True)[1]
+    by_class: dict[Any, Any] = {}
+    merged: dict[Any, list[Any]] = {}
+    for original, seen in zip(uniques, y.to_numpy()[first], strict=True):
+        label = _label(seen)
+        if label in by_class:
+            merged.setdefault(label, [by_class[label]]).append(original)
+        else:
+            by_class[label] = original
+    if merged:
+        groups = list(merged.values())[:3]
+        shown = "; ".join(" and ".join(repr(_plain(v)) for v in group) for group in groups)
+        report.add(
+            "target",
+            f"target: column {target!r} holds labels that differ only in type ({shown}), which "
+            "would merge into one class; make the labels one type, e.g. "
+            f"df[{target!r}] = df[{target!r}].astype(str), or map them to the classes you mean.",
+            target,
+        )
+        return None
+    plain = {k: _plain(v) for k, v in by_class.items()}
+    if any(v is _NOT_PLAIN for v in plain.values()):
+        return None
+    return _UserLabels(plain, _label_dtype(raw.dtype))
+
+
+_NOT_PLAIN = object()
+
+
+def _plain(value: Any) -> Any:
+    """A label as a JSON-friendly Python value (bool, int, float or str), or ``_NOT_PLAIN``."""
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, bytes):
+        return value.decode("utf-8", errors="replace")
+    return value if isinstance(value, (bool, int, float, str)) else _NOT_PLAIN
+
+
+def _label_dtype(dtype: Any) -> str:
+    """The numpy dtype name predictions take to give back labels of a column of ``dtype``."""
+    if isinstance(dtype, pd.CategoricalDtype):
+        return _label_dtype(dtype.categories.dtype)
+    if pd.api.types.is_bool_dtype(dtype):
+        return "bool"
+    numpy_dtype = getattr(dtype, "numpy_dtype", dtype)  # Int64 -> int64, Float64 -> float64
+    if isinstance(numpy_dtype, np.dtype) and numpy_dtype.kind in "iuf":
+        return numpy_dtype.name
+    return "object"
 
 
 def _check_class_sizes(counts: pd.Series, spec: SearchSpec, report: _Report) -> None:
@@ -696,7 +786,12 @@ def _check_split_columns(frame: pd.DataFrame, spec: SearchSpec, report: _Report)
 
 
 def _build(
-    frame: pd.DataFrame, features: list[str], spec: SearchSpec, task: Task, report: _Report
+    frame: pd.DataFrame,
+    features: list[str],
+    spec: SearchSpec,
+    task: Task,
+    report: _Report,
+    users: _UserLabels | None = None,
 ) -> Prepared:
     """Assemble the Prepared record once every check has passed."""
     keep = {*features, spec.target, spec.group_column, spec.order_column}
@@ -735,6 +830,8 @@ def _build(
         warnings=report.warnings,
         dropped=report.dropped,
         n_rows=len(frame),
+        labels=[users.by_class.get(c, c) for c in classes] if users and classes else classes,
+        label_dtype=users.dtype if users and classes else None,
     )
 
 
@@ -863,15 +960,16 @@ def summary(prepared: Prepared) -> dict[str, Any]:
 
     Holds the row count, target, task and metric, feature columns by kind
     (``columns["high_cardinality"]`` is what the workers read), missing share per feature,
-    dropped columns, class balance and base rate (classification) or target statistics
-    (regression), and the warnings.
+    dropped columns, class balance (records of the user's label, row count and share) and base
+    rate (classification) or target statistics (regression), and the warnings.
     """
     frame, spec = prepared.frame, prepared.spec
     y = frame[spec.target]
     n, counts = max(prepared.n_rows, 1), Counter(_label(v) for v in y.to_numpy())
-    balance = [
-        {"label": c, "count": counts[c], "share": round(counts[c] / n, 6)}
-        for c in prepared.classes
+    labels = prepared.labels if len(prepared.labels) == len(prepared.classes) else prepared.classes
+    balance = [  # the one shape of class_balance: service.report reads these records
+        {"label": label, "count": counts[c], "share": round(counts[c] / n, 6)}
+        for c, label in zip(prepared.classes, labels, strict=True)
     ]
     stats = None
     if not prepared.classes:  # regression: the target's spread instead of class balance

@@ -84,6 +84,21 @@ def pump_stations(n: int = 4000, seed: int = 7) -> pd.DataFrame:
     return frame
 
 
+def write_aside(rows: pd.DataFrame, model_path: Path) -> Path:
+    """Write the stations kept aside (no target) as a CSV beside the model, for the hint."""
+    path = model_path.with_name(model_path.stem + "-stations.csv")
+    rows.to_csv(path, index=False)
+    return path
+
+
+def predict_hint(model_path: Path, rows_path: Path) -> str:
+    """The closing line: a ``tutti predict`` command on files the demo wrote."""
+    return (
+        f"exported to {model_path}; the {rows_path} stations were kept aside; try: "
+        f"tutti predict {model_path} {rows_path} -o predictions.csv"
+    )
+
+
 def run_demo(
     *,
     trials: int = 40,
@@ -143,7 +158,7 @@ def run_demo(
             f"best: {meta['candidate']} ({meta['family']}), cross-validated roc_auc "
             f"{meta['cv_score']:.4f}; on the {len(test)} stations kept aside: {auc:.4f}"
         )
-        print(f"exported to {path}; try: tutti predict {path} stations.csv -o predictions.csv")
+        print(predict_hint(path, write_aside(test.drop(columns="failed_within_30d"), path)))
         print(
             "Cross-validated scores are estimates. Before acting on a model's output, check "
             "for leakage and unfairness and follow local rules and qualified review."

@@ -17,8 +17,8 @@ is left out, so a job that has just started still renders::
      "spec": {field: value, ...},      # the search spec, shown as a definition list
      "summary": {"rows": int,
                  "columns": {"numeric": [...], "categorical": [...], "high_cardinality": [...]},
-                 "missing_share": {column: share},          # 0..1
-                 "class_balance": {label: share},           # classification
+                 "missing_share": {column: share},          # 0..1, every feature
+                 "class_balance": [{"label", "count", "share"}],  # classification
                  "base_rate": float | null,                 # binary classification
                  "target_stats": {name: value} | null,      # regression
                  "warnings": [str, ...]},
@@ -33,7 +33,9 @@ is left out, so a job that has just started still renders::
      "pareto": [{"candidate", "score", "predict_ms", "on_front": bool}],
      "ensembles": [{"candidate", "method", "members": [...], "weights": [...],
                     "error_corr": [[...]], "gain": float}],
-     "leakage": [{"column", "finding", "action"}],
+     "leakage": [{"column", "finding", "action"}],   # [] = the checks ran, found nothing
+     "not_run": {part: why},           # checks that did not run: "leakage", "significance",
+                                       # "bias_variance", "composites", "honest"
      "versions": {"tutti": "...", "scikit-learn": "...", ...},
      "warnings": [str, ...]}
 
@@ -71,7 +73,7 @@ body{margin:0;font:15px/1.5 system-ui,-apple-system,"Segoe UI",Roboto,sans-serif
 main{max-width:1180px;margin:0 auto;padding:24px 28px 60px}h1{font-size:26px;margin:0 0 4px}
 h2{font-size:20px;margin:34px 0 10px;border-bottom:2px solid var(--line);padding-bottom:4px}
 h3{font-size:16px;margin:18px 0 6px}.meta{color:var(--muted);margin:0 0 12px}
-.small{font-size:13px;color:var(--muted)}
+.small{font-size:13px;color:var(--muted)}.notrun{color:#8a4b00}
 nav ol{columns:3;font-size:13px;margin:8px 0;padding-left:20px}nav a{color:var(--accent)}
 .box{border-left:5px solid;padding:10px 16px;margin:12px 0;border-radius:4px}
 .caution{border-color:#b8860b;background:#fdf8ea}.warn{border-color:#c0392b;background:#fdeeee}
@@ -174,6 +176,14 @@ def _rows(data: Mapping[str, Any], key: str) -> list[Mapping[str, Any]]:
     if isinstance(value, str) or not isinstance(value, Sequence):
         return []
     return [row for row in value if isinstance(row, Mapping)]
+
+
+def _not_run(data: Mapping[str, Any], part: str, what: str = "Not run") -> str:
+    """ "Not run" and why, when ``part`` did not run; "" when it ran (or nothing is known)."""
+    gaps = data.get("not_run")
+    if not isinstance(gaps, Mapping) or part not in gaps:
+        return ""
+    return f'<p class="notrun"><b>{_e(what)}:</b> {_e(gaps[part])}.</p>'
 
 
 def _plain(value: Any) -> str:
@@ -589,7 +599,7 @@ def _honest(data: Mapping[str, Any], ctx: _Ctx) -> str:
     """Winner's plain CV score next to the BBC-CV estimate and interval and the hold-out score."""
     h = data.get("honest")
     if not isinstance(h, Mapping) or all(v is None for v in h.values()):
-        return ""
+        return _not_run(data, "honest")
     keys = ("winner_cv", "bbc_estimate", "bbc_low", "bbc_high")
     cv, bbc, lo, hi = (_num(h.get(k)) for k in keys)
     cards = [("Plain CV score of the winner", _fmt(cv)), ("Bias-corrected (BBC-CV)", _fmt(bbc))]
@@ -646,6 +656,10 @@ def _leaderboard(data: Mapping[str, Any], ctx: _Ctx) -> str:
     head += ["difference vs #1", "p-value", "vs #1 at 5%"] if sig else []
     table = _table(head, [_leaderboard_row(r, sig) for r in rows], {0, 4, 5, 6, 7, 8, 9})
     note = f'<p class="small">{_TTEST_NOTE}</p>' if sig else ""
+    if not sig and _not_run(data, "significance"):
+        note = _not_run(data, "significance").replace(
+            "Not run:", "Significance against #1 not run:"
+        )
     return (
         f"<p>Cross-validated {_e(ctx.metric)}, {_e(ctx.direction)}: mean ± standard deviation "
         f"over folds. Predict time is per 1,000 rows.</p>{table}{note}"
@@ -688,7 +702,7 @@ def _bias_variance(data: Mapping[str, Any], ctx: _Ctx) -> str:
     """Bias/variance bars for the top candidates."""
     rows = _rows(data, "bias_variance")
     if not rows:
-        return ""
+        return _not_run(data, "bias_variance")
     return _figure(
         _plot_bias_variance(rows),
         "Expected loss split into bias and variance over refits on resampled training data. For "
@@ -715,17 +729,26 @@ def _ensembles(data: Mapping[str, Any], ctx: _Ctx) -> str:
         gain_text = "" if gain is None else f" Gain over its best single member: {gain:+.4f}."
         title = f'{_e(ens.get("candidate"))} <span class="tag">{_e(ens.get("method"))}</span>'
         out.append(f'<h3>{title}</h3><p>{n} members.{gain_text}</p><div class="figs">{figs}</div>')
-    return "".join(out)
+    gap = _not_run(data, "composites")
+    return "".join(out) + (
+        gap.replace("Not run:", "Diagnostics of composites not run:") if out else ""
+    )
 
 
 def _leakage(data: Mapping[str, Any], ctx: _Ctx) -> str:
-    """What the leakage checks found and what was done about it (absent: checks not run)."""
-    if data.get("leakage") is None:
-        return ""
+    """What the leakage checks found and what was done about it, or that they did not run.
+
+    Only a list (even an empty one) means the checks ran; "not run" says why when they did
+    not, and with neither the section is left out. A check that did not run is never shown
+    as a clean result.
+    """
+    gap = _not_run(data, "leakage")
+    if gap or data.get("leakage") is None:
+        return gap
     keys = ("column", "finding", "action")
     body = [[_e(r.get(k)) for k in keys] for r in _rows(data, "leakage")]
     if not body:
-        return "<p>The leakage checks found nothing to report.</p>"
+        return "<p>The leakage checks ran and found nothing to report.</p>"
     return _table(["column", "finding", "action taken"], body, set())
 
 
@@ -739,15 +762,33 @@ def _summary_tables(s: Mapping[str, Any]) -> list[str]:
         out.append("<h3>Columns by type</h3>" + _table(["type", "count", "columns"], body, {1}))
     missing = s.get("missing_share")
     if isinstance(missing, Mapping) and missing:
-        top = sorted(missing.items(), key=lambda kv: -(_num(kv[1]) or 0))[:20]
-        label = "Missing values (top 20 columns)" if len(missing) > 20 else "Missing values"
-        body = [[_e(c), _share_bar(v)] for c, v in top]
-        out.append(f"<h3>{label}</h3>" + _table(["column", "missing share"], body, set()))
-    balance = s.get("class_balance")
-    if isinstance(balance, Mapping) and balance:
-        body = [[_e(k), _share_bar(v)] for k, v in balance.items()]
-        out.append("<h3>Class balance</h3>" + _table(["class", "share"], body, set()))
+        out.append(_missing_table(missing))
+    balance = [r for r in _rows(s, "class_balance") if "label" in r]
+    if balance:
+        body = [
+            [_e(r["label"]), _e(_fmt_count(r.get("count"))), _share_bar(r.get("share"))]
+            for r in balance
+        ]
+        out.append("<h3>Class balance</h3>" + _table(["class", "rows", "share"], body, {1}))
     return out
+
+
+def _fmt_count(value: Any) -> str:
+    number = _num(value)
+    return "–" if number is None else f"{number:,.0f}"
+
+
+def _missing_table(missing: Mapping[str, Any]) -> str:
+    """Columns that have missing values, most first (top 20), or a line saying none has any."""
+    gaps = [(c, v) for c, v in missing.items() if (_num(v) or 0) > 0]
+    if not gaps:
+        none = f"None of the {len(missing)} feature columns has missing values."
+        return f"<h3>Missing values</h3><p>{none}</p>"
+    top = sorted(gaps, key=lambda kv: -(_num(kv[1]) or 0))[:20]
+    label = "Missing values (top 20 columns)" if len(gaps) > 20 else "Missing values"
+    note = f"<p>{len(gaps)} of {len(missing)} feature columns have missing values.</p>"
+    body = [[_e(c), _share_bar(v)] for c, v in top]
+    return f"<h3>{label}</h3>{note}" + _table(["column", "missing share"], body, set())
 
 
 def _data_summary(data: Mapping[str, Any], ctx: _Ctx) -> str:

@@ -41,6 +41,48 @@ def _honest(extras: dict[str, Any]) -> dict[str, Any]:
     return honest
 
 
+#: The explanation parts finalize computes after the model is fitted (each may not run).
+EXPLAIN_PARTS = ("honest", "significance", "bias_variance", "composites")
+
+
+def _leakage(rec: dict[str, Any], extras: dict[str, Any]) -> tuple[list[Any] | None, str]:
+    """What the leakage checks found, or None and why they did not run."""
+    stored = extras.get("leakage")  # written by the first search slice, before any trial
+    explain = extras.get("explain") or {}
+    if isinstance(stored, dict) and "findings" in stored:
+        return list(stored["findings"]), ""
+    if isinstance(stored, dict) and stored.get("error"):
+        return None, str(stored["error"])
+    if "leakage" in explain and "leakage" not in (explain.get("skipped") or []):
+        return list(explain["leakage"] or []), ""  # finalize ran them (or an older job did)
+    if "leakage" in (explain.get("skipped") or []):
+        return None, "skipped for lack of time (the job ran before they moved ahead of the search)"
+    if rec.get("state") in ("queued", "running"):
+        return None, "not yet: the job's first search slice runs them before any trial"
+    return None, "the job stopped before the checks ran"
+
+
+def _explain_gaps(rec: dict[str, Any], explain: dict[str, Any]) -> dict[str, str]:
+    """Why each explanation part that has no result did not run."""
+    if explain.get("error"):
+        why = f"the explanations failed in the worker ({explain['error']})"
+        return dict.fromkeys(EXPLAIN_PARTS, why)
+    if not explain:
+        pending = rec.get("state") in ("queued", "running", "finalizing", "finished")
+        why = (
+            "pending: computed after the model is fitted"
+            if pending
+            else "the job ended before the explanations ran"
+        )
+        return dict.fromkeys(EXPLAIN_PARTS, why)
+    reasons = explain.get("not_run") or {}
+    return {
+        part: str(reasons.get(part) or "skipped for lack of time")
+        for part in explain.get("skipped") or []
+        if part in EXPLAIN_PARTS
+    }
+
+
 def collect(job: JobView) -> dict[str, Any]:
     """The report's input for ``job`` (see the schema in ``service.report``)."""
     rec = job.record()
@@ -86,6 +128,10 @@ def collect(job: JobView) -> dict[str, Any]:
     except Exception:
         versions = {"tutti": __version__}
     summary = dict(rec.get("summary") or {})
+    leakage, leakage_gap = _leakage(rec, extras)
+    not_run = _explain_gaps(rec, explain)
+    if leakage_gap:
+        not_run["leakage"] = leakage_gap
     return {
         "job": {
             "id": job.id,
@@ -104,12 +150,9 @@ def collect(job: JobView) -> dict[str, Any]:
         "bias_variance": explain.get("bias_variance") or [],
         "pareto": extras.get("pareto") or [],
         "ensembles": (explain.get("ensembles") or []) + (explain.get("composites") or []),
-        "leakage": explain.get("leakage") or [],
+        "leakage": leakage,
+        "not_run": not_run,
         "versions": versions,
         "warnings": list(rec.get("warnings") or [])
-        + [
-            f"skipped for lack of time: {', '.join(explain['skipped'])}"
-            for _ in [0]
-            if explain.get("skipped")
-        ],
+        + [f"not run: {part} ({why})" for part, why in not_run.items()],
     }

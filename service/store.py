@@ -258,7 +258,16 @@ class JobStore:
         out: dict[str, Any] = {}
         for k, v in raw.items():
             key, text = _text(k), _text(v)
-            if key in ("spec", "summary", "warnings", "dropped", "schema", "classes", "columns"):
+            if key in (
+                "spec",
+                "summary",
+                "warnings",
+                "dropped",
+                "schema",
+                "classes",
+                "labels",
+                "columns",
+            ):
                 out[key] = json.loads(text)
             elif key.endswith("_at") or key in ("deadline", "search_deadline"):
                 out[key] = float(text)

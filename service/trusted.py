@@ -40,6 +40,7 @@ TRUSTED_TYPES: tuple[str, ...] = (
             "LinearCombinerClassifier",
             "LinearCombinerRegressor",
             "RowCap",
+            "UserLabels",
         )
     ),
 )

@@ -14,6 +14,7 @@ from tuttiml.workers.ensembling import (
     EarlyStoppingBoosterRegressor,
     FrameNormalizer,
     RowCap,
+    UserLabels,
 )
 
 __all__ = [
@@ -25,4 +26,5 @@ __all__ = [
     "LinearCombinerClassifier",
     "LinearCombinerRegressor",
     "RowCap",
+    "UserLabels",
 ]

@@ -105,6 +105,8 @@ def _child_main(conn: Connection, threads: int) -> None:
                 elif kind == "prepare":
                     cache.get(request)  # decode the job's table before the first trial
                     out = ("ready", {})
+                elif kind == "leakage":
+                    out = ("leakage_done", trial_work.leakage(request, cache))
                 elif kind == "explain":
                     out = ("explain_done", trial_work.explain(request, cache))
                 elif kind == "refit":

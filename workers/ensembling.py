@@ -50,6 +50,7 @@ __all__ = [
     "EarlyStoppingBoosterRegressor",
     "FrameNormalizer",
     "RowCap",
+    "UserLabels",
     "best_iterations",
     "refit_rounds",
 ]
@@ -671,6 +672,114 @@ class RowCap(BaseEstimator):
         """Accuracy for classifiers, R² for regressors (the inner estimator's ``score``)."""
         X = self._inner_input(X)
         return float(self.estimator_.score(X, y, sample_weight=sample_weight))
+
+
+# --------------------------------------------------------------------------------------------
+# the user's own class labels
+
+
+def _label_key(value: Any) -> tuple[str, Any]:
+    """Dict key of a label that keeps True, 1 and "1" apart (Python hashes True like 1)."""
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, bool):
+        return "bool", value
+    if isinstance(value, numbers.Number):
+        return "number", value
+    return type(value).__name__, value
+
+
+class UserLabels(ClassifierMixin, BaseEstimator):
+    """A classifier that speaks the user's class labels, with their dtype, on both ends.
+
+    The search trains on normalised class labels (a boolean target as 0/1, whole-number floats
+    as ints, a category of numbers as text); exported pipelines end in this wrapper so that
+    ``predict`` returns ``False``/``True`` for a boolean target, ``1.0`` for a float one, and
+    ``classes_`` lists the user's labels. ``fit`` takes the user's labels too: each is mapped
+    to its normalised class and a clone of ``estimator`` is fitted on those.
+
+    Args:
+        estimator: the classifier to wrap (fitted on the normalised ``classes``).
+        classes: the normalised class labels, sorted.
+        labels: the user's label of each of ``classes``, in the same order.
+        dtype: numpy dtype name of the labels ``predict`` returns (``"bool"``, ``"int32"``,
+            ``"float64"``, ``"object"``…).
+
+    Raises (at fit):
+        ValueError: ``classes`` and ``labels`` differ in length, or ``y`` holds a label not in
+            ``labels``.
+    """
+
+    __module__ = STABLE_MODULE
+
+    def __init__(
+        self, estimator: Any, *, classes: list[Any], labels: list[Any], dtype: str = "object"
+    ) -> None:
+        self.estimator = estimator
+        self.classes = classes
+        self.labels = labels
+        self.dtype = dtype
+
+    def __sklearn_tags__(self) -> Any:
+        tags = super().__sklearn_tags__()
+        inner = get_tags(self.estimator)
+        tags.input_tags = dataclasses.replace(inner.input_tags)
+        return tags
+
+    def _classes_array(self) -> np.ndarray:
+        classes = list(self.classes)
+        if all(isinstance(c, numbers.Integral) for c in classes):
+            return np.asarray(classes, dtype=np.int64)
+        return np.asarray(classes, dtype=object)
+
+    def fit(self, X: Any, y: Any) -> UserLabels:
+        """Map the user's labels ``y`` to the normalised classes and fit a clone on them."""
+        _require(
+            self,
+            "labels",
+            self.labels,
+            len(self.labels) == len(self.classes),
+            f"one label per class ({len(self.classes)} classes)",
+        )
+        classes = self._classes_array()
+        lookup = {_label_key(lab): i for i, lab in enumerate(self.labels)}
+        values = np.asarray(y, dtype=object).ravel()
+        positions = np.empty(len(values), dtype=np.int64)
+        for row, value in enumerate(values):
+            found = lookup.get(_label_key(value))
+            if found is None:
+                raise ValueError(
+                    f"UserLabels: y holds {value!r}, not one of the labels {list(self.labels)!r};"
+                    " fit with the labels the job was trained on."
+                )
+            positions[row] = found
+        self.estimator_ = clone(self.estimator).fit(X, classes[positions])
+        self.classes_ = self._to_user(np.asarray(self.estimator_.classes_))
+        return self
+
+    def _to_user(self, inner: np.ndarray) -> np.ndarray:
+        classes = self._classes_array()
+        positions = np.searchsorted(classes, inner)
+        labels = np.empty(len(self.labels), dtype=object)
+        labels[:] = list(self.labels)
+        return labels[positions].astype(self.dtype)
+
+    def predict(self, X: Any) -> np.ndarray:
+        """Class labels, in the user's own labels and dtype."""
+        check_is_fitted(self)
+        return self._to_user(np.asarray(self.estimator_.predict(X)))
+
+    @available_if(_has_method("predict_proba", "estimator"))
+    def predict_proba(self, X: Any) -> np.ndarray:
+        """Class probabilities of the wrapped classifier, columns in ``classes_`` order."""
+        check_is_fitted(self)
+        return np.asarray(self.estimator_.predict_proba(X))
+
+    @available_if(_has_method("decision_function", "estimator"))
+    def decision_function(self, X: Any) -> np.ndarray:
+        """Decision function of the wrapped classifier."""
+        check_is_fitted(self)
+        return np.asarray(self.estimator_.decision_function(X))
 
 
 # --------------------------------------------------------------------------------------------

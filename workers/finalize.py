@@ -257,6 +257,7 @@ class Finalizer:
                     library=library,
                     scores={str(r["number"]): float(r["score"]) for r in board},
                     dropped=self.record.get("dropped") or {},
+                    leakage_needed="leakage" not in self.store.extras(self.job_id),
                     budget_seconds=budget,
                     fits_allowed=fits_allowed,
                 ),

@@ -39,6 +39,7 @@ optuna.logging.set_verbosity(optuna.logging.WARNING)
 MAX_RETRIES = 2
 CALIBRATION = "calibration"
 SLICE_SLACK = 600.0  # RQ job timeout on top of the slice and one trial
+LEAKAGE_TIMEOUT = 120.0  # at least this long for the leakage checks before the first trial
 #: Finalize refits the winner and, for a library ensemble, its members: the shards stop early
 #: enough for this many of the best trials' all-rows refits (estimated from their fold fits,
 #: times REFIT_SAFETY) to fit before the hard deadline.
@@ -193,6 +194,7 @@ class Shard:
         study = open_study(self.ctx, self.job_id, seed)
         self._enqueue_defaults(study)
         self._prepare()
+        self._check_leakage()
         slice_end = time.monotonic() + self.ctx.settings.shard_seconds
         reason = ""
         while not reason:
@@ -284,6 +286,27 @@ class Shard:
             self.ctx.trials.request("prepare", request, timeout=max(self.spec.trial_timeout, 60))
         except (ChildFailure, TrialCrashed) as exc:
             self.log(f"could not preload the data: {exc}")
+
+    def _check_leakage(self) -> None:
+        """Run the job's leakage checks once, before its first trial, and store what they found.
+
+        They are cheap (a depth-4 tree per column) and must never be skipped for lack of time,
+        so they run before the search rather than in finalize's time-bounded explanations.
+        The first shard to get here claims them; a failure is stored as the reason they did
+        not run, so the report says "not run" rather than "nothing found".
+        """
+        me = f"{self.ctx.name}/{self.shard}/{time.time()!r}"
+        if self.store.set_field_once(self.job_id, "leakage_claimed_by", me) != me:
+            return
+        request = self.ctx.request(self.job_id, dropped=self.record.get("dropped") or {})
+        timeout = max(self.spec.trial_timeout, LEAKAGE_TIMEOUT)
+        try:
+            _, findings = self.ctx.trials.request("leakage", request, timeout=timeout)
+            result: dict[str, Any] = {"findings": list(findings)}
+        except (ChildFailure, TrialCrashed) as exc:
+            self.log(f"leakage checks did not run: {exc}")
+            result = {"error": f"the checks failed in the worker ({exc})"}
+        self.store.set_extra(self.job_id, "leakage", result)
 
     def trial_timeout(self) -> float:
         """The spec's per-trial timeout, cut so that a trial ends before the hard deadline."""

@@ -112,6 +112,29 @@ def evaluate(
     }
 
 
+def _in_user_labels(pipe: Any, data: Dataset, record: dict[str, Any]) -> tuple[Any, np.ndarray]:
+    """The estimator to export and the target to fit it on: the user's labels when they differ.
+
+    The search scores normalised class labels (0/1 for a boolean target, ints for whole-number
+    floats); an exported classifier must answer in the user's own labels and dtype, so it is
+    wrapped in :class:`~workers.ensembling.UserLabels` and fitted on those labels.
+    """
+    labels, dtype = record.get("labels") or [], record.get("label_dtype") or ""
+    if data.classes is None or not dtype or len(labels) != len(data.classes):
+        return pipe, data.y
+    classes = data.classes.tolist()
+    same = (
+        all(type(a) is type(b) and a == b for a, b in zip(labels, classes, strict=True))
+        and np.dtype(dtype) == data.y.dtype
+    )
+    if same:
+        return pipe, data.y
+    wrapper = ensembling.UserLabels(pipe, classes=classes, labels=list(labels), dtype=dtype)
+    user = np.empty(len(labels), dtype=object)
+    user[:] = list(labels)
+    return wrapper, user[np.searchsorted(data.classes, data.y)]
+
+
 def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     """Fit the chosen candidate (or library ensemble) on all search rows; return skops bytes."""
     import skops.io as sio
@@ -150,12 +173,15 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
 
         pipe = FixedThresholdClassifier(pipe, threshold=threshold, response_method="predict_proba")
     rows = data.search_rows
+    exported, y_fit = _in_user_labels(pipe, data, entry.record)
     t0 = time.perf_counter()
-    pipe.fit(data.X.iloc[rows], data.y[rows])
+    exported.fit(data.X.iloc[rows], y_fit[rows])
     fit_seconds = time.perf_counter() - t0
+    if exported is not pipe:
+        pipe = exported.estimator_  # the fitted pipeline, in the labels the search scores
     sample = data.X.iloc[rows[: min(1000, len(rows))]]
     t1 = time.perf_counter()
-    pipe.predict(sample)
+    exported.predict(sample)
     predict_ms = (time.perf_counter() - t1) * 1000.0 * 1000.0 / max(len(sample), 1)
     holdout = None
     hold = data.holdout_rows
@@ -167,7 +193,7 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
         else:
             pred = metrics.predictions(pipe, X_hold, data.task, data.classes)
         holdout = metrics.natural_score(Metric(spec.metric), data.y[hold], pred, data.classes)
-    blob = sio.dumps(pipe, compression=zipfile.ZIP_DEFLATED)
+    blob = sio.dumps(exported, compression=zipfile.ZIP_DEFLATED)
     return {
         "blob": blob,
         "sha256": hashlib.sha256(blob).hexdigest(),
@@ -239,6 +265,20 @@ def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
     return out
 
 
+def leakage(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
+    """The leakage checks on the job's table, run in full (cheap: a small tree per column)."""
+    from tuttiml.workers import explain as ex
+
+    entry = cache.get(request)
+    return ex.leakage_report(
+        entry.data,
+        Metric(entry.spec.metric),
+        request.get("dropped") or {},
+        entry.spec.seed,
+        ex.Budget(float("inf")),
+    )
+
+
 def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     """Honest estimate, significance, bias/variance, diagnostics and leakage (time-bounded)."""
     from tuttiml.workers import explain as ex
@@ -262,14 +302,11 @@ def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     )
     cand_scores = {c["id"]: float(c["score"]) for c in top if "score" in c}
     total = budget.left()
+    if request.get("leakage_needed"):  # normally done before the search; never skipped
+        out["leakage"] = leakage(request, cache)
     parts = (  # cheapest first; each part may use its share of the budget, never more
-        (
-            "leakage",
-            0.15,
-            lambda b: ex.leakage_report(data, metric, request.get("dropped") or {}, seed, b),
-        ),
-        ("significance", 0.45, lambda b: ex.significance(top, data, metric, seed, b)),
-        ("bias_variance", 0.2, lambda b: ex.bias_variance_top(top, data, seed, b)),
+        ("significance", 0.55, lambda b: ex.significance(top, data, metric, seed, b)),
+        ("bias_variance", 0.25, lambda b: ex.bias_variance_top(top, data, seed, b)),
         (
             "composites",
             0.2,
@@ -279,14 +316,21 @@ def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
     # each part does at least its first item (the winner, or #1 against #2), unless the job's
     # deadline left too little time for explanations that fit models at all
     fits_allowed = bool(request.get("fits_allowed", True))
+    out["not_run"] = {}
     for name, share, part in parts:
         if not fits_allowed:
             out[name] = []
             out["skipped"].append(name)
+            out["not_run"][name] = "the job's deadline left too little time for refits"
             continue
         out[name] = part(ex.Budget(min(budget.left(), share * total)))
         if not out[name] and name != "composites":
             out["skipped"].append(name)
+            out["not_run"][name] = (
+                "only one candidate, nothing to compare with"
+                if name == "significance" and len(top) < 2
+                else "no time left in its share of the explanation budget"
+            )
     return out
 
 
