@@ -101,6 +101,16 @@ def test_wheel_installs_nothing_named_service_or_workers_at_the_top(
     assert "tuttiml/estimators.py" in wheel_files
 
 
+def test_wheel_ships_every_module_of_the_checkout(wheel_files: list[str]) -> None:
+    # A new subpackage missing from pyproject's package list would silently not install.
+    want = {
+        f"tuttiml/{wing}/{p.relative_to(ROOT / wing).as_posix()}"
+        for wing in ("service", "workers")
+        for p in (ROOT / wing).rglob("*.py")
+    } | {f"tuttiml/{p.name}" for p in (ROOT / "tuttiml").glob("*.py")}
+    assert want - set(wheel_files) == set()
+
+
 RECORDED_0_1_0 = [
     [0.899349, 0.048075, 0.052576],
     [0.898283, 0.048775, 0.052943],
