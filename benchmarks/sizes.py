@@ -15,10 +15,10 @@ def _docstring_lines(tree: ast.Module) -> set[int]:
     out: set[int] = set()
     for node in ast.walk(tree):
         if isinstance(node, (ast.Module, ast.ClassDef, ast.FunctionDef, ast.AsyncFunctionDef)):
-            body = node.body
-            if body and isinstance(body[0], ast.Expr) and isinstance(body[0].value, ast.Constant):
-                if isinstance(body[0].value.value, str):
-                    out.update(range(body[0].lineno, (body[0].end_lineno or 0) + 1))
+            first = node.body[0] if node.body else None
+            value = first.value if isinstance(first, ast.Expr) else None
+            if isinstance(value, ast.Constant) and isinstance(value.value, str):
+                out.update(range(first.lineno, (first.end_lineno or 0) + 1))  # type: ignore[union-attr]
     return out
 
 
