@@ -33,11 +33,22 @@ def code_lines(path: Path) -> int:
 
 
 def long_functions(path: Path, limit: int) -> list[tuple[str, int]]:
-    tree = ast.parse(path.read_text())
+    """Functions with more than ``limit`` lines of code (docstrings and comments excluded)."""
+    text = path.read_text()
+    tree = ast.parse(text)
+    skip = _docstring_lines(tree)
+    lines = text.splitlines()
     out = []
     for node in ast.walk(tree):
         if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef)):
-            n = (node.end_lineno or node.lineno) - node.lineno + 1
+            span = range(node.lineno, (node.end_lineno or node.lineno) + 1)
+            n = sum(
+                1
+                for i in span
+                if i not in skip
+                and lines[i - 1].strip()
+                and not lines[i - 1].strip().startswith("#")
+            )
             if n > limit:
                 out.append((node.name, n))
     return out
@@ -55,7 +66,7 @@ def main() -> None:
     print("largest modules (lines of code):")
     for n, f in sizes[:10]:
         print(f"  {n:5d}  {f}")
-    print(f"functions over {args.limit} lines:")
+    print(f"functions over {args.limit} lines of code:")
     for f in files:
         for name, n in long_functions(f, args.limit):
             print(f"  {n:5d}  {f.relative_to(root)}:{name}")

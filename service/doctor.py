@@ -46,92 +46,87 @@ def _loopback(url: str) -> bool:
 
 def diagnose(r: redis.Redis, url: str, *, embedded: bool = False) -> list[Finding]:
     """Run every check against a connected server."""
-    out: list[Finding] = []
     info = r.info("server")
-    out.append(Finding(OK, "server", f"Redis {info.get('redis_version')} answers at {url}"))
-    aof = _config(r, "appendonly")
-    save = _config(r, "save")
-    fsync = _config(r, "appendfsync")
+    out = [Finding(OK, "server", f"Redis {info.get('redis_version')} answers at {url}")]
+    out.append(_persistence(r, embedded=embedded))
+    eviction = _eviction(r)
+    if eviction is not None:
+        out.append(eviction)
+    out.append(_access(url))
+    return out
+
+
+def _persistence(r: redis.Redis, *, embedded: bool) -> Finding:
+    """Whether an acknowledged write survives a crash of the server."""
+    aof, save, fsync = (_config(r, k) for k in ("appendonly", "save", "appendfsync"))
     if aof is None:
-        out.append(
-            Finding(
-                ADVICE,
-                "persistence",
-                "CONFIG is not available; make sure the server persists data (appendonly yes)",
-            )
+        return Finding(
+            ADVICE,
+            "persistence",
+            "CONFIG is not available; make sure the server persists data (appendonly yes)",
         )
-    elif aof == "yes":
+    if aof == "yes":
         if fsync == "always":
-            out.append(Finding(OK, "persistence", "append-only file, fsync on every write"))
-        elif fsync == "everysec":
-            out.append(
-                Finding(
-                    OK if not embedded else ADVICE,
-                    "persistence",
-                    "append-only file with appendfsync everysec: a crash of the "
-                    "server can lose up to ~1 s of writes (use 'always' to lose none)",
-                )
-            )
-        else:
-            out.append(
-                Finding(
-                    PROBLEM,
-                    "persistence",
-                    f"appendfsync {fsync}: the OS decides "
-                    "when writes reach disk; set appendfsync everysec or always",
-                )
-            )
-    elif save:
-        out.append(
-            Finding(
-                PROBLEM,
+            return Finding(OK, "persistence", "append-only file, fsync on every write")
+        if fsync == "everysec":
+            return Finding(
+                OK if not embedded else ADVICE,
                 "persistence",
-                f"only RDB snapshots ({save}): a crash loses "
-                "everything since the last snapshot; set appendonly yes",
+                "append-only file with appendfsync everysec: a crash of the "
+                "server can lose up to ~1 s of writes (use 'always' to lose none)",
             )
+        return Finding(
+            PROBLEM,
+            "persistence",
+            f"appendfsync {fsync}: the OS decides "
+            "when writes reach disk; set appendfsync everysec or always",
         )
-    else:
-        out.append(
-            Finding(
-                PROBLEM,
-                "persistence",
-                "no persistence: a restart loses every job; "
-                "set appendonly yes and appendfsync everysec (or always)",
-            )
+    if save:
+        return Finding(
+            PROBLEM,
+            "persistence",
+            f"only RDB snapshots ({save}): a crash loses "
+            "everything since the last snapshot; set appendonly yes",
         )
+    return Finding(
+        PROBLEM,
+        "persistence",
+        "no persistence: a restart loses every job; "
+        "set appendonly yes and appendfsync everysec (or always)",
+    )
+
+
+def _eviction(r: redis.Redis) -> Finding | None:
+    """Whether the server may drop tutti's keys when memory runs short (None: unknown)."""
     policy = _config(r, "maxmemory-policy")
-    if policy is not None:
-        if policy == "noeviction":
-            out.append(Finding(OK, "eviction", "maxmemory-policy noeviction"))
-        else:
-            out.append(
-                Finding(
-                    PROBLEM,
-                    "eviction",
-                    f"maxmemory-policy {policy} can drop tutti's "
-                    "keys (trial leases, results); set maxmemory-policy noeviction",
-                )
-            )
+    if policy is None:
+        return None
+    if policy == "noeviction":
+        return Finding(OK, "eviction", "maxmemory-policy noeviction")
+    return Finding(
+        PROBLEM,
+        "eviction",
+        f"maxmemory-policy {policy} can drop tutti's "
+        "keys (trial leases, results); set maxmemory-policy noeviction",
+    )
+
+
+def _access(url: str) -> Finding:
+    """Whether the server is reached safely (loopback, or a password and TLS)."""
     parsed = urlparse(url)
     if not _loopback(url) and not parsed.password:
-        out.append(
-            Finding(
-                PROBLEM,
-                "password",
-                "the server is reached over the network "
-                "without a password: set requirepass and use "
-                "redis://:PASSWORD@host:port/0 (or rediss:// for TLS)",
-            )
+        return Finding(
+            PROBLEM,
+            "password",
+            "the server is reached over the network "
+            "without a password: set requirepass and use "
+            "redis://:PASSWORD@host:port/0 (or rediss:// for TLS)",
         )
-    elif not _loopback(url) and parsed.scheme != "rediss":
-        out.append(
-            Finding(
-                ADVICE,
-                "tls",
-                "password sent in clear text over the network; use "
-                "rediss:// if the network is not trusted",
-            )
+    if not _loopback(url) and parsed.scheme != "rediss":
+        return Finding(
+            ADVICE,
+            "tls",
+            "password sent in clear text over the network; use "
+            "rediss:// if the network is not trusted",
         )
-    else:
-        out.append(Finding(OK, "access", "loopback/unix socket or password set"))
-    return out
+    return Finding(OK, "access", "loopback/unix socket or password set")
