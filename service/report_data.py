@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any, Protocol
 
 import pandas as pd
+from tuttiml.service.records import TableSummary
 from tuttiml.service.spec import Metric, natural, score_sign
 from tuttiml.service.store import JobStore
 from tuttiml.service.version import __version__
@@ -127,7 +128,7 @@ def collect(job: JobView) -> dict[str, Any]:
         versions = {**meta.get("versions", {}), "tutti (report)": __version__}
     except Exception:
         versions = {"tutti": __version__}
-    summary = dict(rec.get("summary") or {})
+    summary = TableSummary.load(rec["summary"]).dump() if rec.get("summary") else {}
     leakage, leakage_gap = _leakage(rec, extras)
     not_run = _explain_gaps(rec, explain)
     if leakage_gap:

@@ -21,6 +21,7 @@ from typing import Any
 import numpy as np
 import optuna
 from optuna.trial import TrialState
+from tuttiml.service.records import TableSummary
 from tuttiml.service.spec import SearchSpec
 from tuttiml.service.store import JobState
 from tuttiml.workers.candidates import CALIBRATED_METRICS, calibrations
@@ -63,7 +64,7 @@ def context_from_record(record: dict[str, Any], seed: int) -> FamilyContext:
     return family_context(
         task=str(record["task"]),
         seed=seed,
-        n_search_rows=round(record["summary"]["rows"] * (1 - spec.holdout)),
+        n_search_rows=round(TableSummary.load(record["summary"]).rows * (1 - spec.holdout)),
         n_folds=spec.folds,
         schema=record["schema"],
         high_cardinality=tuple(cols.get("high_cardinality", ())),

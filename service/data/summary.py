@@ -7,6 +7,7 @@ from typing import Any
 
 import numpy as np
 from tuttiml.service.data._common import Prepared, _label
+from tuttiml.service.records import ClassShare, FeatureColumns, TableSummary, TargetStats
 
 
 def summary(prepared: Prepared) -> dict[str, Any]:
@@ -28,26 +29,26 @@ def summary(prepared: Prepared) -> dict[str, Any]:
     stats = None
     if not prepared.classes:  # regression: the target's spread instead of class balance
         stats = {k: _json_float(getattr(y, k)()) for k in ("mean", "std", "min", "max")}
-    return {
-        "rows": prepared.n_rows,
-        "target": spec.target,
-        "task": prepared.task,
-        "metric": spec.metric.value if spec.metric else None,
-        "n_features": len(prepared.schema),
-        "columns": {
-            "numeric": list(prepared.numeric_columns),
-            "categorical": list(prepared.categorical_columns),
-            "high_cardinality": list(prepared.high_cardinality_columns),
-        },
-        "schema": dict(prepared.schema),
-        "missing_share": {c: round(float(frame[c].isna().mean()), 6) for c in prepared.schema},
-        "dropped": dict(prepared.dropped),
-        "classes": list(prepared.classes),
-        "class_balance": balance or None,
-        "base_rate": prepared.base_rate,
-        "target_stats": stats,
-        "warnings": list(prepared.warnings),
-    }
+    return TableSummary(
+        rows=prepared.n_rows,
+        target=spec.target,
+        task=str(prepared.task),
+        metric=spec.metric.value if spec.metric else None,
+        n_features=len(prepared.schema),
+        columns=FeatureColumns(
+            numeric=list(prepared.numeric_columns),
+            categorical=list(prepared.categorical_columns),
+            high_cardinality=list(prepared.high_cardinality_columns),
+        ),
+        schema=dict(prepared.schema),
+        missing_share={c: round(float(frame[c].isna().mean()), 6) for c in prepared.schema},
+        dropped=dict(prepared.dropped),
+        classes=list(prepared.classes),
+        class_balance=[ClassShare(**b) for b in balance] or None,
+        base_rate=prepared.base_rate,
+        target_stats=TargetStats(**stats) if stats else None,
+        warnings=list(prepared.warnings),
+    ).dump()
 
 
 def _json_float(value: Any) -> float | None:
