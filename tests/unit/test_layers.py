@@ -125,7 +125,9 @@ def test_service_never_imports_workers_or_ml_at_import_time(path: Path) -> None:
     assert not top & {"sklearn", "skops"}, f"{path.name}: sklearn/skops only lazily"
 
 
-@pytest.mark.parametrize("name", ["spec", "errors", "config", "keys", "trusted", "version", "records"])
+@pytest.mark.parametrize(
+    "name", ["spec", "errors", "config", "keys", "trusted", "version", "records"]
+)
 def test_contract_modules_import_only_stdlib_pydantic_and_each_other(name: str) -> None:
     allowed = STDLIB | {"pydantic", "service", "__future__"}
     for mod in _imports(ROOT / "service" / f"{name}.py"):
