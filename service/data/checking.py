@@ -17,7 +17,12 @@ from tuttiml.service.data._common import (
     _Report,
     _show,
 )
-from tuttiml.service.data.labels import _raw_column, _user_labels, _UserLabels
+from tuttiml.service.data.labels import (
+    _labels_may_merge,
+    _raw_column,
+    _user_labels,
+    _UserLabels,
+)
 from tuttiml.service.data.leaks import _check_leaks
 from tuttiml.service.data.normalizing import _normalize
 from tuttiml.service.errors import InvalidSpecError
@@ -67,11 +72,14 @@ def prepare(df: pd.DataFrame, spec: SearchSpec) -> Prepared:
     if spec.target in frame.columns:
         kept = frame[spec.target].notna().to_numpy()
         frame = _drop_missing_target(frame, spec.target, report)
+        raw = _raw_column(df, spec.target)[kept] if len(frame) else None
         n_problems = len(report.problems)
-        if len(frame):  # labels that merge would also read as fewer classes: check them first
-            users = _user_labels(_raw_column(df, spec.target)[kept], frame[spec.target], report)
-        if len(frame) and len(report.problems) == n_problems:
+        if raw is not None and _labels_may_merge(raw.dtype):  # merged labels would also read
+            users = _user_labels(raw, frame[spec.target], report)  # as fewer classes: first
+        if raw is not None and len(report.problems) == n_problems:
             task = _resolve_task(frame[spec.target], spec, report)
+        if raw is not None and users is None and task not in (None, Task.REGRESSION):
+            users = _user_labels(raw, frame[spec.target], report)  # numbers, booleans
     resolved = _resolve_metric(spec, task, report)
     features = _select_features(frame, spec, report)
     if spec.target in frame.columns and len(frame):

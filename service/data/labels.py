@@ -24,6 +24,13 @@ def _raw_column(df: pd.DataFrame, name: str) -> pd.Series:
     return df.iloc[:, position].reset_index(drop=True)
 
 
+def _labels_may_merge(dtype: Any) -> bool:
+    """Only text-like columns can hold labels of different types (1 and "1")."""
+    if isinstance(dtype, pd.CategoricalDtype):
+        return True
+    return pd.api.types.is_object_dtype(dtype) or isinstance(dtype, pd.StringDtype)
+
+
 def _user_labels(raw: pd.Series, y: pd.Series, report: _Report) -> _UserLabels | None:
     """Map each class the workers see back to the user's label; refuse labels that merge.
 
