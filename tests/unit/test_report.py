@@ -92,6 +92,11 @@ class _TagChecker(HTMLParser):
             self.h2[-1] += data
 
 
+def _section(page: str, anchor: str) -> str:
+    found = re.search(rf'<section id="{anchor}">(.*?)</section>', page, re.DOTALL)
+    return found.group(1) if found else ""
+
+
 def _check_tags(page: str) -> _TagChecker:
     checker = _TagChecker()
     checker.feed(page)
@@ -177,29 +182,57 @@ def test_ampersands_and_quotes_in_names_do_not_break_attributes(sample: dict[str
 
 
 def test_leaderboard_states_direction_and_significance_caveat(sample: dict[str, Any]) -> None:
+    # the sample is a real job (tests/fixtures/make_report_sample.py): expectations come from it
     page = render_report(sample)
-    assert "higher is better" in page
-    assert "0.9214 ± 0.0061" in page
-    assert "not distinguishable" in page
+    assert sample["metric"] == "log_loss" and "lower is better" in page
+    board = _section(page, "leaderboard")
+    for row in sample["leaderboard"]:
+        assert f"{row['score']:.4f} ± {row['std']:.4f}" in board, row["candidate"]
+    tested = [r for r in sample["leaderboard"] if r.get("p_value") is not None]
+    assert tested  # #1 was compared with the next candidates
     assert "not corrected for #1 having been picked as the best of many" in page
-    assert "&lt;0.001" in page
+    for row in tested:
+        p = "&lt;0.001" if row["p_value"] < 0.001 else f"{row['p_value']:.3f}"
+        flag = "distinguishable" if row["distinguishable"] else "not distinguishable"
+        assert re.search(rf"<td class=num>{p}</td><td[^>]*>(<span[^>]*>)?{flag}", board), row
 
 
 def test_leaderboard_without_significance_has_no_test_columns(sample: dict[str, Any]) -> None:
     for row in sample["leaderboard"]:
         for key in ("mean_diff", "p_value", "distinguishable"):
-            del row[key]
+            row.pop(key, None)
     page = render_report(sample)
     assert "p-value" not in page and "not distinguishable" not in page
 
 
 def test_honest_section_shows_all_estimates_and_the_warning(sample: dict[str, Any]) -> None:
+    honest = sample["honest"]
     page = render_report(sample)
-    for text in ("0.9214", "0.9121", "0.9043 – 0.9196", "0.9032", "+0.0093", "Tsamardinos"):
-        assert text in page
-    assert "The estimates disagree." in page
+    section = _section(page, "honest")
+    cv, bbc, lo, hi = (honest[k] for k in ("winner_cv", "bbc_estimate", "bbc_low", "bbc_high"))
+    for text in (f"{cv:.4f}", f"{bbc:.4f}", f"{lo:.4f} – {hi:.4f}", "Tsamardinos"):
+        assert text in section
+    assert f"{bbc - cv:+.4f}" in section  # log loss: lower is better, so optimism = bbc - cv
+    assert ("The estimates disagree." in section) == bool(honest.get("warning"))
+    sample["honest"]["warning"] = "hold-out and estimate differ"
+    assert "The estimates disagree." in render_report(sample)
     del sample["honest"]["warning"]
     assert "The estimates disagree." not in render_report(sample)
+
+
+def test_the_sample_is_a_real_job_on_the_palmer_penguins(sample: dict[str, Any]) -> None:
+    # palmerpenguins documentation (from memory): 344 penguins: 152 Adelie, 124 Gentoo,
+    # 68 Chinstrap
+    summary = sample["summary"]
+    assert summary["rows"] == 344
+    counts = {r["label"].split()[0]: r["count"] for r in summary["class_balance"]}
+    assert counts == {"Adelie": 152, "Gentoo": 124, "Chinstrap": 68}
+    data = _section(render_report(sample), "data")
+    assert "<h3>Class balance</h3>" in data and "<td class=num>152</td>" in data
+    # the raw table's constant columns were dropped before the search and reported as such
+    leakage = {r["column"]: r["action"] for r in sample["leakage"]}
+    assert leakage == dict.fromkeys(summary["dropped"], "dropped before the search")
+    assert sample["not_run"] == {}  # every check ran in the sample job
 
 
 def test_lower_is_better_metric_is_stated_and_optimism_sign_follows(
@@ -256,16 +289,20 @@ def _plots(page: str) -> list[str]:
 def test_sample_has_every_plot_with_title_and_axis_labels(sample: dict[str, Any]) -> None:
     plots = _plots(render_report(sample))
     ids = [re.search(r'id="([^"]+)"', p).group(1) for p in plots]  # type: ignore[union-attr]
+    expected_ensembles = []
+    for i, ens in enumerate(sample["ensembles"], start=1):
+        if ens.get("weights"):
+            expected_ensembles.append(f"plot-weights-{i}")
+        if ens.get("error_corr"):
+            expected_ensembles.append(f"plot-corr-{i}")
     assert ids == [
         "plot-best-over-time",
         "plot-score-distribution",
         "plot-pareto",
         "plot-bias-variance",
-        "plot-weights-1",
-        "plot-corr-1",
-        "plot-weights-2",
-        "plot-corr-2",
+        *expected_ensembles,
     ]
+    assert "plot-corr-2" in ids  # the sample has two ensembles with error correlations
     for plot in plots:
         assert "<title>" in plot
         assert plot.count('class="axis-label"') == 2
