@@ -19,6 +19,10 @@ from tuttiml.service.keys import Keys, check_id
 
 CHUNK_BYTES = 64 * 1024 * 1024  # one Redis string holds at most 512 MB
 LOG_LINES = 5000
+#: Job-record fields stored as JSON (the rest are plain strings or timestamps).
+JSON_FIELDS = frozenset(
+    {"spec", "summary", "warnings", "dropped", "schema", "classes", "labels", "columns"}
+)
 
 
 class JobState(enum.StrEnum):
@@ -258,16 +262,7 @@ class JobStore:
         out: dict[str, Any] = {}
         for k, v in raw.items():
             key, text = _text(k), _text(v)
-            if key in (
-                "spec",
-                "summary",
-                "warnings",
-                "dropped",
-                "schema",
-                "classes",
-                "labels",
-                "columns",
-            ):
+            if key in JSON_FIELDS:
                 out[key] = json.loads(text)
             elif key.endswith("_at") or key in ("deadline", "search_deadline"):
                 out[key] = float(text)
