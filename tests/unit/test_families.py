@@ -419,12 +419,14 @@ def test_worker_and_trial_process_build_the_same_context(metric: str) -> None:
 
     frame = load_breast_cancer(as_frame=True).frame  # scikit-learn bundled (UCI WDBC)
     frame.columns = [c.replace(" ", "_") for c in frame.columns]
+    from tuttiml.service.data import prepare, summary
+
     spec = SearchSpec(target="target", metric=metric).resolved(Task.BINARY)  # type: ignore[arg-type]
     schema = dict.fromkeys([c for c in frame.columns if c != "target"], "numeric")
     record = {
         "task": "binary",
         "schema": schema,
-        "summary": {"rows": len(frame)},
+        "summary": summary(prepare(frame, spec)),  # the record's summary, as submit writes it
         "classes": [0, 1],
         "spec": spec.model_dump(mode="json"),
     }
