@@ -137,8 +137,8 @@ def cmd_status(args: argparse.Namespace) -> int:
     client = _client(args)
     jobs = [client.job(args.job)] if args.job else client.jobs()
     rows = []
-    for job in jobs:
-        st = job.status()
+    statuses = [job.status() for job in jobs]
+    for st in statuses:
         rows.append(
             [
                 st["job"],
@@ -148,17 +148,31 @@ def cmd_status(args: argparse.Namespace) -> int:
                 f"{st['metric']} {_fmt(st['best'])}",
                 _fmt_seconds(st["elapsed"]),
                 _fmt_seconds(st["eta"]) if st["eta"] is not None else "—",
+                _explained(st),
                 st.get("reason") or st.get("stop_reason") or "",
             ]
         )
     if args.json:
-        print(json.dumps([j.status() for j in jobs], indent=2, default=str))
+        print(json.dumps(statuses, indent=2, default=str))
         return 0
     if not rows:
         print("no jobs yet: submit one with `tutti submit data.csv --target COLUMN`")
         return 0
-    _print_table(rows, ["job", "state", "trials", "failed", "best", "elapsed", "left", "note"])
+    head = ["job", "state", "trials", "failed", "best", "elapsed", "left", "explanations", "note"]
+    _print_table(rows, head)
+    if len(statuses) == 1:  # one job: each explanation part and whether it ran
+        for part, status in statuses[0]["explain_parts"].items():
+            print(f"  {part}: {status}")
     return 0
+
+
+def _explained(st: dict[str, Any]) -> str:
+    """``pending``, ``running``, ``done`` (with how many parts did not run) or ``failed``."""
+    state = st.get("explanations")
+    if not state:
+        return "—"
+    missing = sum(1 for v in st.get("explain_parts", {}).values() if v.startswith("not run"))
+    return f"{state} ({missing} not run)" if missing else str(state)
 
 
 def _print_board(board: Any, limit: int | None = None) -> None:

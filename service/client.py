@@ -16,6 +16,7 @@ from tuttiml.service.artifacts import load_pipeline, write_export
 from tuttiml.service.config import Settings
 from tuttiml.service.connection import connect, masked_url, resolve_url
 from tuttiml.service.errors import ArtifactError, JobStateError
+from tuttiml.service.explanations import PARTS, ExplainState, PartStatus, part_status
 from tuttiml.service.keys import Keys, check_id
 from tuttiml.service.queue import TaskQueue
 from tuttiml.service.spec import Metric, SearchSpec, natural, parse_spec, score_sign
@@ -204,7 +205,13 @@ class Job:
 
     # ------------------------------------------------------------------ progress
     def status(self) -> dict[str, Any]:
-        """State, trials done / budget, best score (natural sign), failures, elapsed seconds."""
+        """State, trials done / budget, best score (natural sign), failures, elapsed seconds.
+
+        ``explanations`` is ``pending``, ``running``, ``done`` or ``failed`` once the model is
+        committed (None before, and for jobs committed before explanations were a task of
+        their own); ``explain_parts`` says for each part ``done``, ``pending`` or
+        ``not run: <reason>`` once they are committed.
+        """
         rec = self.record()
         spec = SearchSpec.model_validate(rec["spec"])
         metric = Metric(spec.metric) if spec.metric else None
@@ -238,6 +245,23 @@ class Job:
             "eta": eta,
             "stop_reason": rec.get("stop_reason"),
             "reason": rec.get("reason"),
+            **self._explanations(rec),
+        }
+
+    def _explanations(self, rec: dict[str, Any]) -> dict[str, Any]:
+        """The explanations' state, their budget and, once settled, each part's status."""
+        state = rec.get("explain_state")
+        if state is None or rec.get("committed_epoch") is None:
+            return {"explanations": None, "explain_budget": None, "explain_parts": {}}
+        if rec.get("explain_epoch") == rec.get("committed_epoch"):
+            parts = part_status(self.store.extras(self.id).get("explain"))
+        else:
+            parts = {name: PartStatus.PENDING.value for name in PARTS}
+        budget = rec.get("explain_budget")
+        return {
+            "explanations": state,
+            "explain_budget": float(budget) if budget is not None else None,
+            "explain_parts": parts,
         }
 
     @property
@@ -251,11 +275,15 @@ class Job:
         timeout: float | None = None,
         poll: float = 1.0,
         stream: Any = None,
+        explanations: bool = False,
     ) -> dict[str, Any]:
         """Block until the job is final; with ``progress`` draw a one-line progress bar.
 
         While the job needs a worker and none is alive on this store for ``NO_WORKER_SECONDS``,
         a line on ``stream`` (default stderr) says so and how to start one; waiting goes on.
+
+        The model is ready when the job is final; its explanations follow (``status()``
+        shows them pending). With ``explanations=True`` wait for those too.
 
         Raises:
             TimeoutError: ``timeout`` seconds passed first.
@@ -271,6 +299,8 @@ class Job:
                 st["state"] != JobState.CANCELLED.value
                 or self.record().get("committed_epoch") is not None
             )
+            if final and explanations and st["explanations"] is not None:
+                final = ExplainState(st["explanations"]).final
             if not final and watch.nobody_for_long(st["state"]):
                 stream.write(("\n" if progress and tty else "") + watch.message() + "\n")
                 stream.flush()
@@ -560,7 +590,8 @@ def progress_line(st: dict[str, Any]) -> str:
     bar = "#" * round(frac * width) + "-" * (width - round(frac * width))
     best = "—" if st["best"] is None else f"{st['best']:.4f}"
     fails = f" · {st['failed']} failed" if st["failed"] else ""
+    explained = f" · explanations {st['explanations']}" if st.get("explanations") else ""
     return (
         f"[{bar}] {st['trials_done']}/{st['budget']} trials · best {st['metric']} {best}"
-        f" · {_fmt_seconds(st['elapsed'])}{fails} · {st['state']}   "
+        f" · {_fmt_seconds(st['elapsed'])}{fails} · {st['state']}{explained}   "
     )

@@ -9,8 +9,9 @@ from tuttiml.service.keys import Keys
 SERIALIZER = "json"
 SHARD_TASK = "tuttiml.workers.tasks.run_shard"
 FINALIZE_TASK = "tuttiml.workers.tasks.finalize_job"
+EXPLAIN_TASK = "tuttiml.workers.tasks.explain_job"
 #: The only functions a tutti worker will run (checked again on the worker side).
-ALLOWED_TASKS: frozenset[str] = frozenset({SHARD_TASK, FINALIZE_TASK})
+ALLOWED_TASKS: frozenset[str] = frozenset({SHARD_TASK, FINALIZE_TASK, EXPLAIN_TASK})
 NO_EXPIRY = -1
 
 
@@ -47,6 +48,19 @@ class TaskQueue:
             result_ttl=600,
             failure_ttl=7 * 24 * 3600,
             description=f"tutti finalize {job_id}",
+        )
+        return str(rq_job.id)
+
+    def enqueue_explain(self, job_id: str, *, timeout: float) -> str:
+        """Queue the explanations of ``job_id`` behind queued search work (the model is already
+        committed, so they never delay another job's search more than its own shards would)."""
+        rq_job = self.search.enqueue(
+            EXPLAIN_TASK,
+            job_id,
+            job_timeout=int(timeout),
+            result_ttl=600,
+            failure_ttl=7 * 24 * 3600,
+            description=f"tutti explain {job_id}",
         )
         return str(rq_job.id)
 

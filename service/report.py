@@ -29,6 +29,10 @@ is left out, so a job that has just started still renders::
                       "mean_diff", "p_value", "distinguishable"}],  # vs rank 1; optional
      "trials": [{"number", "family", "state", "score", "finished_at"}],  # score natural sign
      "honest": {"winner_cv", "bbc_estimate", "bbc_low", "bbc_high", "holdout", "warning"},
+     "explanations": {"state": "pending" | "running" | "done" | "failed",
+                      "budget_seconds", "seconds",
+                      "parts": [{"part", "what", "status"}]},  # status: "done", "pending",
+                                                               # or "not run: <reason>"
      "bias_variance": [{"candidate", "family", "loss", "expected_loss", "bias", "variance"}],
      "pareto": [{"candidate", "score", "predict_ms", "on_front": bool}],
      "ensembles": [{"candidate", "method", "members": [...], "weights": [...],
@@ -618,6 +622,29 @@ def _honest(data: Mapping[str, Any], ctx: _Ctx) -> str:
     return out + f'<p class="small">{units} {_BBC_NOTE}</p>'
 
 
+def _explanations(data: Mapping[str, Any], ctx: _Ctx) -> str:
+    """Which checks ran: each part is done, pending or not run (with why); never implied."""
+    ex = data.get("explanations")
+    if not isinstance(ex, Mapping):
+        return ""
+    state = str(ex.get("state") or "unknown")
+    budget, took = _num(ex.get("budget_seconds")), _num(ex.get("seconds"))
+    head = f'<p>Explanations <span class="tag">{_e(state)}</span>'
+    if budget is not None:
+        head += f" · budget {budget:.0f} s"
+    if took is not None:
+        head += f" · took {took:.0f} s"
+    head += ". They run after the model is committed, within their own time budget.</p>"
+    if state in ("pending", "running"):
+        head += (
+            "<p>This report was made before they finished: the sections they fill are "
+            "missing, not empty. Make the report again once they are done.</p>"
+        )
+    keys = ("part", "what", "status")
+    body = [[_e(r.get(k)) for k in keys] for r in _rows(ex, "parts")]
+    return head + _table(["part", "what it checks", "status"], body, set())
+
+
 def _members_text(members: Any) -> str:
     """Leaderboard 'members' cell: a count plus the escaped member names."""
     if isinstance(members, Sequence) and not isinstance(members, str):
@@ -821,6 +848,7 @@ def _versions(data: Mapping[str, Any], ctx: _Ctx) -> str:
 _SECTIONS = (
     ("cautions", "Cautions", _cautions),
     ("warnings", "Warnings from the search", _warnings),
+    ("explanations", "Which checks ran", _explanations),
     ("honest", "Honest estimate of the winner", _honest),
     ("leaderboard", "Leaderboard", _leaderboard),
     ("progress", "Search progress by family", _progress),

@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import Any, Protocol
 
 import pandas as pd
+from tuttiml.service.explanations import PARTS, ExplainState, part_status, ran, state_of
 from tuttiml.service.records import TableSummary
 from tuttiml.service.spec import Metric, natural, score_sign
 from tuttiml.service.store import JobStore
@@ -27,8 +28,38 @@ class JobView(Protocol):
 DISAGREE = 0.05
 
 
-def _honest(extras: dict[str, Any]) -> dict[str, Any]:
-    honest = dict((extras.get("explain") or {}).get("honest") or {})
+def _selection(extras: dict[str, Any], metric: Metric) -> dict[str, Any]:
+    """Finalize's one BBC-CV of the winner (stored greater-is-better) in the natural sign."""
+    sel = extras.get("selection")
+    if not sel:  # jobs explained inside finalize kept it with the explanations
+        return dict((extras.get("explain") or {}).get("honest") or {})
+    lo, hi = sorted((natural(metric, sel["ci_low"]), natural(metric, sel["ci_high"])))
+    return {
+        "winner_cv": natural(metric, sel["winner_cv"]),
+        "bbc_estimate": natural(metric, sel["estimate"]),
+        "bbc_low": lo,
+        "bbc_high": hi,
+        "n_candidates": sel.get("n_candidates"),
+        "n_boot": sel.get("n_boot"),
+    }
+
+
+def _explanations(explain: dict[str, Any]) -> dict[str, Any] | None:
+    """State and per-part status of the explanations (None for jobs that predate them)."""
+    state = state_of(explain)
+    if state is None:
+        return None
+    status = part_status(explain)
+    return {
+        "state": state.value,
+        "budget_seconds": explain.get("budget_seconds"),
+        "seconds": explain.get("seconds"),
+        "parts": [{"part": k, "what": PARTS[k], "status": v} for k, v in status.items()],
+    }
+
+
+def _honest(extras: dict[str, Any], metric: Metric) -> dict[str, Any]:
+    honest = _selection(extras, metric)
     holdout = extras.get("holdout_score")
     if holdout is not None:
         honest["holdout"] = holdout
@@ -54,6 +85,10 @@ def _leakage(rec: dict[str, Any], extras: dict[str, Any]) -> tuple[list[Any] | N
         return list(stored["findings"]), ""
     if isinstance(stored, dict) and stored.get("error"):
         return None, str(stored["error"])
+    if state_of(explain) is not None:  # the explanation task's record says whether it ran
+        if ran(explain, "leakage"):
+            return list(explain.get("leakage") or []), ""
+        return None, _gap(part_status(explain).get("leakage", ""))
     if "leakage" in explain and "leakage" not in (explain.get("skipped") or []):
         return list(explain["leakage"] or []), ""  # finalize ran them (or an older job did)
     if "leakage" in (explain.get("skipped") or []):
@@ -63,8 +98,18 @@ def _leakage(rec: dict[str, Any], extras: dict[str, Any]) -> tuple[list[Any] | N
     return None, "the job stopped before the checks ran"
 
 
+def _gap(status: str) -> str:
+    """A part's status as the report's reason it has no result."""
+    if status.startswith("not run: "):
+        return status[len("not run: ") :]
+    return "pending: computed after the model is committed"
+
+
 def _explain_gaps(rec: dict[str, Any], explain: dict[str, Any]) -> dict[str, str]:
     """Why each explanation part that has no result did not run."""
+    if state_of(explain) is not None:
+        status = part_status(explain)
+        return {p: _gap(v) for p, v in status.items() if v != "done" and p in EXPLAIN_PARTS}
     if explain.get("error"):
         why = f"the explanations failed in the worker ({explain['error']})"
         return dict.fromkeys(EXPLAIN_PARTS, why)
@@ -131,6 +176,12 @@ def collect(job: JobView) -> dict[str, Any]:
     summary = TableSummary.load(rec["summary"]).dump() if rec.get("summary") else {}
     leakage, leakage_gap = _leakage(rec, extras)
     not_run = _explain_gaps(rec, explain)
+    if state_of(explain) is not None and not extras.get("selection"):
+        not_run["honest"] = (
+            "pending: computed after the model is committed"
+            if state_of(explain) in (ExplainState.PENDING, ExplainState.RUNNING)
+            else "no out-of-fold predictions were kept (library_size 0) or none could be scored"
+        )
     if leakage_gap:
         not_run["leakage"] = leakage_gap
     return {
@@ -147,9 +198,12 @@ def collect(job: JobView) -> dict[str, Any]:
         "summary": summary,
         "leaderboard": leaderboard,
         "trials": trials,
-        "honest": _honest(extras),
+        "honest": _honest(extras, metric),
+        "explanations": _explanations(explain),
         "bias_variance": explain.get("bias_variance") or [],
-        "pareto": extras.get("pareto") or [],
+        "pareto": extras.get("pareto") or []
+        if state_of(explain) is None or ran(explain, "pareto")
+        else [],
         "ensembles": (explain.get("ensembles") or []) + (explain.get("composites") or []),
         "leakage": leakage,
         "not_run": not_run,

@@ -95,7 +95,10 @@ class SearchSpec(BaseModel):
 
     Budgets: the search stops at ``max_trials`` complete-or-pruned trials or after
     ``wall_seconds`` (counted from the moment the first worker starts it) or at ``deadline``,
-    whichever comes first; finalize fits inside that time.
+    whichever comes first; finalize (refit and commit of the best pipeline) fits inside that
+    time. The explanations run afterwards, for ``explain_seconds`` of their own (default: a
+    quarter of the search time within the workers' bounds; 0 runs none of the parts that fit
+    models).
     """
 
     model_config = ConfigDict(
@@ -118,6 +121,7 @@ class SearchSpec(BaseModel):
                 "wall_seconds",
                 "trial_timeout",
                 "holdout",
+                "explain_seconds",
             ):
                 if isinstance(data.get(name), bool):
                     raise ValueError(f"{name}: expected a number, got {data[name]!r}")
@@ -135,6 +139,16 @@ class SearchSpec(BaseModel):
     wall_seconds: float | None = Field(default=3600.0, gt=0, le=30 * 24 * 3600)
     deadline: datetime | None = None
     trial_timeout: float = Field(default=600.0, gt=0, le=24 * 3600)
+    explain_seconds: float | None = Field(
+        default=None,
+        ge=0,
+        le=24 * 3600,
+        description=(
+            "Time the explanations get after the model is committed; None: a quarter of the "
+            "search time within the workers' TUTTI_EXPLAIN_MIN/MAX_SECONDS; 0: none that fit "
+            "models."
+        ),
+    )
     max_failed_trials: int | None = Field(default=None, ge=1)
     memory_limit_mb: int | None = Field(default=None, ge=64)
     families: tuple[str, ...] | None = None

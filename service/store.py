@@ -511,10 +511,13 @@ class JobStore:
         extras: dict[str, Any],
         state: JobState,
         reason: str = "",
+        fields: dict[str, str] | None = None,
     ) -> bool:
         """Commit a finalize's results exactly once per epoch (a fenced compare-and-set).
 
-        Returns False when another finalize already committed this epoch (nothing changes).
+        ``fields`` are written into the job record in the same transaction (e.g. the
+        explanations' state). Returns False when another finalize already committed this epoch
+        (nothing changes).
         """
         key = self.keys.job(job_id)
         for _ in range(50):
@@ -538,9 +541,9 @@ class JobStore:
                             self.keys.extras(job_id),
                             mapping={k: json.dumps(v) for k, v in extras.items()},
                         )
-                    fields = {"committed_epoch": epoch, "finalized_at": now}
+                    record = {**(fields or {}), "committed_epoch": epoch, "finalized_at": now}
                     if cur != state.value:
-                        fields.update({"state": state.value, f"{state.value}_at": now})
+                        record.update({"state": state.value, f"{state.value}_at": now})
                         pipe.rpush(
                             self.keys.job_events(job_id),
                             json.dumps(
@@ -553,13 +556,101 @@ class JobStore:
                             ),
                         )
                     if reason:
-                        fields["reason"] = reason
-                    pipe.hset(key, mapping=fields)
+                        record["reason"] = reason
+                    pipe.hset(key, mapping=record)
                     pipe.execute()
                     return True
                 except redis.WatchError:
                     continue
         raise JobStateError(f"job {job_id}: could not commit finalize (store too busy); retry.")
+
+    def commit_explanations(
+        self,
+        job_id: str,
+        epoch: str,
+        *,
+        explain: dict[str, Any],
+        artifacts: dict[str, tuple[bytes, dict[str, Any]]],
+        extras: dict[str, Any] | None = None,
+    ) -> bool:
+        """Commit a job's explanations exactly once per committed epoch (fenced).
+
+        Writes only while ``epoch`` is still the job's committed epoch (an ``extend`` since
+        then makes this result stale) and the explanations of that epoch are not committed yet,
+        so a duplicate or stale explanation task changes nothing. Returns whether it wrote.
+        """
+        key = self.keys.job(job_id)
+        for _ in range(50):
+            with self.r.pipeline(transaction=True) as pipe:
+                try:
+                    pipe.watch(key)
+                    if not self._explainable(pipe, key, epoch):
+                        return False
+                    pipe.multi()
+                    for name, (blob, meta) in artifacts.items():
+                        pipe.hset(
+                            self.keys.artifact(job_id, name),
+                            mapping={"blob": blob, "meta": json.dumps(meta)},
+                        )
+                        pipe.sadd(self.keys.artifacts(job_id), name)
+                    written = {**(extras or {}), "explain": explain}
+                    pipe.hset(
+                        self.keys.extras(job_id),
+                        mapping={k: json.dumps(v) for k, v in written.items()},
+                    )
+                    pipe.hset(
+                        key,
+                        mapping={
+                            "explain_epoch": epoch,
+                            "explain_state": str(explain["state"]),
+                            "explained_at": repr(_now()),
+                        },
+                    )
+                    pipe.execute()
+                    return True
+                except redis.WatchError:
+                    continue
+        raise JobStateError(f"job {job_id}: could not commit explanations (store busy); retry.")
+
+    @staticmethod
+    def _explainable(pipe: Any, key: str, epoch: str) -> bool:
+        """``epoch`` is the job's current epoch, committed, and not explained yet."""
+        current, committed, explained = (
+            _text(v) if v is not None else None
+            for v in pipe.hmget(key, ["epoch", "committed_epoch", "explain_epoch"])
+        )
+        return (current or "0") == epoch and committed == epoch and explained != epoch
+
+    def pending_explanations(self, job_id: str) -> float | None:
+        """The budget of the committed epoch's explanations while they are not committed yet
+        (pending or running), else None."""
+        state, committed, explained, budget = self.r.hmget(
+            self.keys.job(job_id),
+            ["explain_state", "committed_epoch", "explain_epoch", "explain_budget"],
+        )
+        if state is None or committed is None or _text(state) not in ("pending", "running"):
+            return None
+        if explained is not None and _text(explained) == _text(committed):
+            return None
+        return float(_text(budget)) if budget is not None else 0.0
+
+    def explain_started(self, job_id: str, epoch: str) -> int:
+        """Mark the explanations of ``epoch`` as running; returns the attempt number (0 if
+        that epoch is no longer committed or already explained: then nothing is written)."""
+        key = self.keys.job(job_id)
+        for _ in range(50):
+            with self.r.pipeline(transaction=True) as pipe:
+                try:
+                    pipe.watch(key)
+                    if not self._explainable(pipe, key, epoch):
+                        return 0
+                    pipe.multi()
+                    pipe.hset(key, "explain_state", "running")
+                    pipe.hincrby(key, f"explain_attempts:{epoch}", 1)
+                    return int(pipe.execute()[1])
+                except redis.WatchError:
+                    continue
+        raise JobStateError(f"job {job_id}: could not start explanations (store busy); retry.")
 
     def reopen(self, job_id: str, spec_json: str, *, shards: int) -> int:
         """Re-open a finished, cancelled or failed job for more search; returns the new epoch.
@@ -583,7 +674,15 @@ class JobStore:
                     epoch = int(_text(pipe.hget(key, "epoch") or b"0")) + 1
                     now = _now()
                     pipe.multi()
-                    pipe.hdel(key, "stop_reason", "started_at", "reason", "slices", "shard_errors")
+                    pipe.hdel(
+                        key,
+                        "stop_reason",
+                        "started_at",
+                        "reason",
+                        "slices",
+                        "shard_errors",
+                        "explain_state",
+                    )
                     pipe.hset(
                         key,
                         mapping={

@@ -107,6 +107,8 @@ def _child_main(conn: Connection, threads: int) -> None:
                     out = ("ready", {})
                 elif kind == "leakage":
                     out = ("leakage_done", trial_work.leakage(request, cache))
+                elif kind == "selection":
+                    out = ("selection_done", trial_work.selection(request, cache))
                 elif kind == "explain":
                     out = ("explain_done", trial_work.explain(request, cache))
                 elif kind == "refit":

@@ -1,6 +1,8 @@
-"""What finalize adds to a bare leaderboard, computed in the trial process.
+"""The explanations' parts, computed in the trial process after the model is committed.
 
-- honest winner estimate: bootstrap bias-corrected CV over the kept out-of-fold predictions;
+(The honest winner estimate, bootstrap bias-corrected CV over the kept out-of-fold
+predictions, is computed once by finalize: ``honesty.selection_estimate``.)
+
 - significance: the top candidates re-evaluated on repeated k-fold with fresh seeds, each
   compared with #1 by the corrected repeated k-fold t-test (not corrected for having picked
   the best of many);
@@ -9,7 +11,8 @@
 - a leakage report (id-like columns, single features that alone predict the target, duplicate
   rows split across folds).
 
-Every part is bounded by a time budget; parts that do not fit are reported as skipped.
+Every part is bounded by a time budget; the worker also runs each under a hard timeout
+(``workers/explain_task.py``) and records a part that did not finish as not run.
 """
 
 from __future__ import annotations
@@ -29,7 +32,7 @@ from tuttiml.workers.datasets import Dataset
 from tuttiml.workers.diagnostics import ensemble_gain, error_correlation
 from tuttiml.workers.evaluation import cross_validate
 from tuttiml.workers.families import get_family
-from tuttiml.workers.honesty import bbc_cv, corrected_resampled_ttest, repeated_kfold_indices
+from tuttiml.workers.honesty import corrected_resampled_ttest, repeated_kfold_indices
 
 TOP_N = 5
 REPEATS = 2
@@ -46,28 +49,6 @@ class Budget:
 
     def left(self) -> float:
         return self.end - time.monotonic()
-
-
-def honest_winner(members: dict[int, np.ndarray], data: Dataset, metric: Metric) -> dict[str, Any]:
-    """BBC-CV over the kept out-of-fold predictions, in the metric's natural sign."""
-    if len(members) < 1:
-        return {}
-    rows = data.scored_rows
-    ids = sorted(members)
-    preds = [members[t][rows] for t in ids]
-    out = bbc_cv(
-        preds, data.y[rows], metric, classes=data.classes, n_boot=500, seed=int(data.fold_ids.size)
-    )
-    s = metrics.sign(metric)
-    lo, hi = sorted((s * out["ci_low"], s * out["ci_high"]))
-    return {
-        "winner_cv": s * out["winner_cv"],
-        "bbc_estimate": s * out["estimate"],
-        "bbc_low": lo,
-        "bbc_high": hi,
-        "n_candidates": out["n_candidates"],
-        "n_boot": out["n_boot"],
-    }
 
 
 def _build(member: dict[str, Any], data: Dataset, seed: int) -> Any:

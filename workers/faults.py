@@ -35,3 +35,11 @@ def fold_pause() -> float:
     """Test-only: ``{"sleep_fold": seconds}`` in ``TUTTI_FAULT_INJECT`` slows every fold."""
     raw = os.environ.get("TUTTI_FAULT_INJECT")
     return float(json.loads(raw).get("sleep_fold", 0.0)) if raw else 0.0
+
+
+def explain_pause(part: str) -> None:
+    """Test-only: ``{"explain_sleep": {"leakage": 3}}`` in ``TUTTI_FAULT_INJECT`` makes that
+    explanation part sleep first (to observe pending explanations, or a part's time limit)."""
+    raw = os.environ.get("TUTTI_FAULT_INJECT")
+    if raw:
+        time.sleep(float(json.loads(raw).get("explain_sleep", {}).get(part, 0.0)))

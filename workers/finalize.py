@@ -2,7 +2,9 @@
 
 Runs at least once per job (enqueued by the last shard to stop, re-enqueued by the sweep if
 its worker died) and commits exactly once per epoch: the commit is a compare-and-set on the
-job record, so a duplicate finalize changes nothing.
+job record, so a duplicate finalize changes nothing. The model is due at the job's deadline:
+the explanations (significance, bias/variance, Pareto refits, diagnostics) are marked pending
+in the same commit and run afterwards as their own task (``workers/explain_task.py``).
 """
 
 from __future__ import annotations
@@ -15,7 +17,8 @@ from collections.abc import Iterable
 from typing import Any
 
 from tuttiml.service.artifacts import seal
-from tuttiml.service.spec import SearchSpec, natural
+from tuttiml.service.explanations import default_budget, pending_record
+from tuttiml.service.spec import SearchSpec
 from tuttiml.service.store import JobState
 from tuttiml.service.trusted import TRUSTED_TYPES
 from tuttiml.workers.child import ChildFailure, TrialCrashed
@@ -23,9 +26,6 @@ from tuttiml.workers.context import WorkerContext
 
 log = logging.getLogger(__name__)
 REFIT_TRIES = 3
-PARETO_REFITS = 3
-TOP_N = 5
-EXPLAIN_SHARE = 0.25
 
 
 def versions() -> dict[str, str]:
@@ -53,6 +53,11 @@ def refit_seconds(rows: Iterable[dict[str, Any]], folds: int) -> float:
     one all-rows refit is about that sum ÷ (folds − 1).
     """
     return sum(float(r.get("fit_seconds") or 0.0) for r in rows) / max(folds - 1, 1)
+
+
+def explain_timeout(budget: float, spec: SearchSpec) -> float:
+    """RQ timeout of the explanation task: its budget plus one refit's worth of slack."""
+    return budget + max(4 * spec.trial_timeout, 600.0) + 60.0
 
 
 def trial_optimism(library: list[dict[str, Any]]) -> float:
@@ -94,6 +99,9 @@ class Finalizer:
             return self.commit_empty(final)
         t_lib = time.time()
         library = self.library_ensembles(board)
+        selection = self.selection()
+        for ens in library:  # what the best trial's CV score overstates (like with like)
+            ens["trial_optimism"] = max(float(selection.get("optimism", 0.0)), 0.0)
         library_seconds = time.time() - t_lib
         candidates = self.candidates(board, library)
         candidates, over_time = self.affordable(candidates, board)
@@ -120,8 +128,7 @@ class Finalizer:
             )
             return "failed" if ok else "duplicate"
         meta = artifacts["best"][1]
-        pareto = self.pareto(candidates, chosen, artifacts)
-        explained = self.explain(candidates, library, board)
+        budget = self.explain_budget(t0)
         extras = {
             "library": library,
             "best": {k: chosen[k] for k in ("id", "kind", "family", "score")},
@@ -131,14 +138,47 @@ class Finalizer:
             "library_seconds": library_seconds,
             "refit_errors": errors,
             "passed_over_for_time": over_time,
-            "pareto": pareto,
-            "explain": explained,
+            "selection": selection,
+            "explain": pending_record(self.epoch, budget),
         }
         ok = self.store.commit_final(
-            self.job_id, self.epoch, artifacts=artifacts, extras=extras, state=final
+            self.job_id,
+            self.epoch,
+            artifacts=artifacts,
+            extras=extras,
+            state=final,
+            fields={"explain_state": "pending", "explain_budget": repr(budget)},
         )
         self.log(f"{'committed' if ok else 'duplicate, nothing changed'}: best {chosen['id']}")
+        if ok:  # a lost enqueue is found by the sweep (explanations pending, no task)
+            self.ctx.queue.enqueue_explain(self.job_id, timeout=explain_timeout(budget, self.spec))
         return "committed" if ok else "duplicate"
+
+    def explain_budget(self, search_end: float) -> float:
+        """Seconds the explanations get: the spec's, or a quarter of the search time within
+        the workers' bounds."""
+        started = float(self.record.get("started_at") or search_end)
+        return default_budget(
+            search_end - started,
+            explicit=self.spec.explain_seconds,
+            min_seconds=self.ctx.settings.explain_min_seconds,
+            max_seconds=self.ctx.settings.explain_max_seconds,
+        )
+
+    def selection(self) -> dict[str, Any]:
+        """BBC-CV of picking the best kept candidate (greater-is-better; {} when none)."""
+        if self.spec.library_size <= 0:
+            return {}
+        try:
+            _, out = self.ctx.trials.request(
+                "selection",
+                self.request(families=list(self.spec.family_names)),
+                timeout=max(self.spec.trial_timeout, 300.0),
+            )
+            return dict(out)
+        except (ChildFailure, TrialCrashed) as exc:
+            self.log(f"honest estimate skipped: {exc}")
+            return {}
 
     def affordable(
         self, candidates: list[dict[str, Any]], board: list[dict[str, Any]]
@@ -176,97 +216,6 @@ class Finalizer:
         if not limits:
             return max(300.0, 2 * self.spec.trial_timeout)
         return min(limits) - time.time()
-
-    def pareto(
-        self,
-        candidates: list[dict[str, Any]],
-        chosen: dict[str, Any],
-        artifacts: dict[str, tuple[bytes, dict[str, Any]]],
-    ) -> list[dict[str, Any]]:
-        """Score vs predict latency front; its best few members are refitted too."""
-        from tuttiml.workers.diagnostics import pareto_front
-
-        rows = self.store.board(self.job_id)
-        points = [
-            {
-                "id": f"t{r['number']}",
-                "score": float(r["score"]),
-                "predict_ms": float(r.get("predict_ms", float("nan"))),
-            }
-            for r in rows
-        ]
-        front = set(pareto_front(points))
-        by_id = {c["id"]: c for c in candidates}
-        refits = 0
-        for p in sorted(points, key=lambda q: -q["score"]):
-            if p["id"] not in front or p["id"] == chosen["id"] or refits >= PARETO_REFITS:
-                continue
-            if self.time_left() < 2 * self.spec.trial_timeout / 3:
-                break
-            try:
-                artifacts[f"pareto-{p['id']}"] = self.refit(by_id[p["id"]])
-                refits += 1
-            except (ChildFailure, TrialCrashed, ValueError) as exc:
-                self.log(f"pareto refit of {p['id']} failed: {exc}")
-        return [
-            {
-                "candidate": p["id"],
-                "score": natural(self.spec.metric, p["score"]),
-                "predict_ms": p["predict_ms"],
-                "on_front": p["id"] in front,
-            }
-            for p in points
-        ]
-
-    def explain(
-        self,
-        candidates: list[dict[str, Any]],
-        library: list[dict[str, Any]],
-        board: list[dict[str, Any]],
-    ) -> dict[str, Any]:
-        """Honest estimate, significance, bias/variance, diagnostics, leakage (time-bounded)."""
-        started = float(self.record.get("started_at") or time.time())
-        searched = max(time.time() - started, 0.0)
-        # explanations cost a quarter of the search time, at least the floor and at most the
-        # cap (30 s and 900 s by default), never more than 60% of the time left before the
-        # deadline; with less than the floor to spend, the parts that fit models are skipped
-        # (listed as such) so a short job ends on time
-        floor = min(self.ctx.settings.explain_min_seconds, self.ctx.settings.explain_max_seconds)
-        budget = min(
-            max(EXPLAIN_SHARE * searched, floor),
-            max(self.time_left() * 0.6, 0.0),
-            self.ctx.settings.explain_max_seconds,
-        )
-        fits_allowed = budget >= floor
-        top = [
-            {
-                "id": c["id"],
-                "family": c["family"],
-                "params": c["members"][0]["params"],
-                "score": c["score"],
-            }
-            for c in candidates
-            if c["kind"] == "trial"
-        ][:TOP_N]
-        try:
-            _, out = self.ctx.trials.request(
-                "explain",
-                self.request(
-                    families=list(self.spec.family_names),
-                    top=top,
-                    library=library,
-                    scores={str(r["number"]): float(r["score"]) for r in board},
-                    dropped=self.record.get("dropped") or {},
-                    leakage_needed="leakage" not in self.store.extras(self.job_id),
-                    budget_seconds=budget,
-                    fits_allowed=fits_allowed,
-                ),
-                timeout=budget + max(self.spec.trial_timeout, 120.0),
-            )
-            return dict(out)
-        except (ChildFailure, TrialCrashed) as exc:
-            self.log(f"explanations skipped: {exc}")
-            return {"error": str(exc)}
 
     def commit_empty(self, final: JobState) -> str:
         rows = self.store.trial_rows(self.job_id)
@@ -349,11 +298,14 @@ class Finalizer:
             "fit_info": row.get("fit_info") or [],
         }
 
-    def refit(self, cand: dict[str, Any]) -> tuple[bytes, dict[str, Any]]:
+    def refit(
+        self, cand: dict[str, Any], *, timeout: float | None = None
+    ) -> tuple[bytes, dict[str, Any]]:
+        """Refit ``cand`` on all rows in the trial process; its skops bytes and metadata."""
         _, out = self.ctx.trials.request(
             "refit",
             self.request(members=cand["members"], combiner=cand.get("combiner")),
-            timeout=max(4 * self.spec.trial_timeout, 600.0),
+            timeout=max(4 * self.spec.trial_timeout, 600.0) if timeout is None else timeout,
         )
         untrusted = set(out["untrusted"]) - set(TRUSTED_TYPES)
         if untrusted:

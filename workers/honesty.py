@@ -360,9 +360,49 @@ def bbc_cv(
     }
 
 
-#: Rows and bootstrap samples of :func:`selection_optimism` (it runs in every finalize).
-OPTIMISM_MAX_ROWS = 20_000
-OPTIMISM_BOOT = 200
+#: Rows and bootstrap samples of :func:`selection_estimate`. It runs once per finalize: the
+#: same figure ranks trials against library ensembles and is the report's honest estimate.
+SELECTION_MAX_ROWS = 20_000
+SELECTION_BOOT = 200
+
+
+def selection_estimate(
+    preds: Sequence[np.ndarray],
+    y: np.ndarray,
+    metric: Metric | str,
+    *,
+    classes: np.ndarray | None = None,
+    seed: int = 0,
+) -> dict[str, Any]:
+    """BBC-CV of picking the best of ``preds``, computed once per finalize and stored.
+
+    :func:`bbc_cv` on at most ``SELECTION_MAX_ROWS`` rows drawn with ``seed`` and
+    ``SELECTION_BOOT`` bootstrap samples. Its ``optimism`` (floored at 0 in
+    :func:`selection_optimism`) is what finalize subtracts from the trials' CV scores before
+    they compete with library ensembles, whose scores are nested; its ``estimate`` and interval
+    are the report's honest estimate of the winner. Greater-is-better units, plus ``rows`` (how
+    many rows were used). Empty when there is no candidate or no usable bootstrap sample.
+    """
+    if len(preds) < 1:
+        return {}
+    y = np.asarray(y)
+    keep = np.arange(len(y))
+    if len(y) > SELECTION_MAX_ROWS:
+        keep = np.sort(
+            np.random.default_rng(seed).choice(len(y), SELECTION_MAX_ROWS, replace=False)
+        )
+    try:
+        out = bbc_cv(
+            [np.asarray(p)[keep] for p in preds],
+            y[keep],
+            metric,
+            classes=classes,
+            n_boot=SELECTION_BOOT,
+            seed=seed,
+        )
+    except ValueError:
+        return {}
+    return {**out, "rows": len(keep)}
 
 
 def selection_optimism(
@@ -375,31 +415,17 @@ def selection_optimism(
 ) -> float:
     """How far the best CV score among ``preds`` overstates what picking the best delivers.
 
-    The BBC-CV optimism (``winner_cv - estimate`` of :func:`bbc_cv`, floored at 0) on at most
-    ``OPTIMISM_MAX_ROWS`` rows drawn with ``seed``: finalize subtracts it from the trials' CV
-    scores before they compete with library ensembles, whose scores are nested and therefore
-    carry no such optimism. Greater-is-better units; 0 for fewer than two candidates.
+    The optimism of :func:`selection_estimate`, floored at 0; 0 for fewer than two candidates
+    (nothing was picked). Greater-is-better units.
     """
     if len(preds) < 2:
         return 0.0
-    y = np.asarray(y)
-    keep = np.arange(len(y))
-    if len(y) > OPTIMISM_MAX_ROWS:
-        keep = np.sort(
-            np.random.default_rng(seed).choice(len(y), OPTIMISM_MAX_ROWS, replace=False)
-        )
-    try:
-        out = bbc_cv(
-            [np.asarray(p)[keep] for p in preds],
-            y[keep],
-            metric,
-            classes=classes,
-            n_boot=OPTIMISM_BOOT,
-            seed=seed,
-        )
-    except ValueError:
-        return 0.0
-    return max(float(out["optimism"]), 0.0)
+    return max(
+        float(
+            selection_estimate(preds, y, metric, classes=classes, seed=seed).get("optimism", 0.0)
+        ),
+        0.0,
+    )
 
 
 def corrected_resampled_ttest(

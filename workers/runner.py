@@ -85,6 +85,8 @@ def _active_jobs(ctx: Any) -> bool:
                 return True
             if st is JobState.CANCELLED and not ctx.store.committed_epoch(job_id):
                 return True
+            if st.terminal and ctx.store.pending_explanations(job_id) is not None:
+                return True  # the model is committed; its explanations are still to come
     return False
 
 
@@ -100,6 +102,7 @@ def worker_main(opts: dict[str, Any]) -> None:
     import lightgbm  # noqa: F401
     import optuna  # noqa: F401
     import sklearn.ensemble  # noqa: F401
+    import tuttiml.workers.explain_task
     import tuttiml.workers.finalize
     import tuttiml.workers.search  # noqa: F401
     from tuttiml.service.config import Settings

@@ -1,8 +1,9 @@
-"""The sweep: finds jobs whose shards or finalize were lost (a worker died) and re-enqueues them.
+"""The sweep: finds jobs whose shards, finalize or explanations were lost (a worker died) and
+re-enqueues them.
 
-A shard or finalize holds a lease while it runs; a queued one sits in RQ. A job that should
-be progressing but has neither for two consecutive looks, at least a lease period apart,
-gets its lost work re-enqueued. Runs at worker start-up and then periodically.
+A shard, finalize or explanation task holds a lease while it runs; a queued one sits in RQ.
+A job that should be progressing but has neither for two consecutive looks, at least a lease
+period apart, gets its lost work re-enqueued. Runs at worker start-up and then periodically.
 """
 
 from __future__ import annotations
@@ -15,6 +16,7 @@ from tuttiml.workers.context import WorkerContext
 
 log = logging.getLogger(__name__)
 FINALIZE_SHARD = -1
+EXPLAIN_SHARD = -2
 
 
 def _suspect(ctx: WorkerContext, job_id: str, what: str) -> bool:
@@ -30,6 +32,23 @@ def _suspect(ctx: WorkerContext, job_id: str, what: str) -> bool:
     return False
 
 
+def _lost_explanations(ctx: WorkerContext, job_id: str) -> int:
+    """Re-enqueue the explanations of a committed job when they are pending with no task."""
+    from tuttiml.service.spec import SearchSpec
+    from tuttiml.workers.finalize import explain_timeout
+
+    budget = ctx.store.pending_explanations(job_id)
+    if budget is None or _running_shards(ctx, job_id) or ctx.queue.queued_for(job_id):
+        return 0
+    if not _suspect(ctx, job_id, "explain"):
+        return 0
+    spec = SearchSpec.model_validate(ctx.store.job(job_id)["spec"])
+    ctx.queue.enqueue_explain(job_id, timeout=explain_timeout(budget, spec))
+    ctx.store.log(job_id, f"[{ctx.name}] sweep: re-enqueued the explanations")
+    log.warning("job %s: re-enqueued lost explanations", job_id)
+    return 1
+
+
 def sweep(ctx: WorkerContext) -> int:
     """One pass over live jobs; returns how many tasks were re-enqueued."""
     store, queue = ctx.store, ctx.queue
@@ -39,6 +58,8 @@ def sweep(ctx: WorkerContext) -> int:
             state = store.state(job_id)
         except Exception:
             continue
+        if state.terminal:
+            fixed += _lost_explanations(ctx, job_id)
         if state.terminal and state is not JobState.CANCELLED:
             continue
         if state is JobState.CANCELLED and store.committed_epoch(job_id):

@@ -69,3 +69,17 @@ def finalize_job(job_id: str) -> str:
         return "no such job"
     with Lease(ctx, ctx.store.keys.shard_lease(job_id, -1), ctx.settings.lease_seconds):
         return Finalizer(ctx, job_id).run()
+
+
+def explain_job(job_id: str) -> str:
+    """Compute and commit the explanations of the job's committed epoch (exactly once)."""
+    from tuttiml.workers.explain_task import Explainer
+    from tuttiml.workers.search import Lease
+    from tuttiml.workers.sweep import EXPLAIN_SHARD
+
+    job_id = check_id(job_id)
+    ctx = current()
+    if not ctx.store.exists(job_id):
+        return "no such job"
+    with Lease(ctx, ctx.store.keys.shard_lease(job_id, EXPLAIN_SHARD), ctx.settings.lease_seconds):
+        return Explainer(ctx, job_id).run()

@@ -25,7 +25,7 @@ from tuttiml.workers.candidates import build_candidate, describe_members, refit_
 from tuttiml.workers.datasets import Dataset, build_dataset
 from tuttiml.workers.evaluation import Pruned, cross_validate
 from tuttiml.workers.families import get_family
-from tuttiml.workers.faults import fold_pause, inject_fault
+from tuttiml.workers.faults import explain_pause, fold_pause, inject_fault
 from tuttiml.workers.oof import oof_array
 from tuttiml.workers.thresholds import decision_threshold
 
@@ -208,7 +208,6 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
 
 def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
     """Library ensembles over the kept out-of-fold predictions (no fold fits), scored honestly."""
-    from tuttiml.workers.honesty import selection_optimism
     from tuttiml.workers.library import build_library_ensembles
 
     entry = cache.get(request)
@@ -252,17 +251,30 @@ def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
                 "combiner": combiner,
             }
         )
-    # what the best trial's CV score overstates (finalize compares like with like)
-    optimism = selection_optimism(
-        [members[t] for t in sorted(members)],
+    return out
+
+
+def selection(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
+    """BBC-CV of picking the best kept candidate: computed once per finalize, then stored.
+
+    Finalize ranks trials by their CV score minus its optimism; the report shows its estimate
+    and interval as the winner's honest estimate (greater-is-better here).
+    """
+    from tuttiml.workers.honesty import selection_estimate
+
+    entry = cache.get(request)
+    data = entry.data
+    store = cache.store(request["redis_url"], request["prefix"])
+    blobs = store.library_members(request["job_id"], request["families"])
+    rows = data.scored_rows
+    ids = sorted(blobs)
+    return selection_estimate(
+        [oof_array(blobs[t])[rows] for t in ids],
         data.y[rows],
         Metric(entry.spec.metric),
         classes=data.classes,
         seed=int(data.fold_ids.size),
     )
-    for doc in out:
-        doc["trial_optimism"] = optimism
-    return out
 
 
 def leakage(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
@@ -279,59 +291,39 @@ def leakage(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
     )
 
 
-def explain(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
-    """Honest estimate, significance, bias/variance, diagnostics and leakage (time-bounded)."""
+def explain(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
+    """One part of the explanations (``request["part"]``), within ``budget_seconds``.
+
+    The worker asks for each part separately, with a hard timeout, so a part that overruns
+    loses only itself.
+    """
     from tuttiml.workers import explain as ex
 
     entry = cache.get(request)
     data, metric = entry.data, Metric(entry.spec.metric)
     seed = int(request["seed"])
-    budget = ex.Budget(float(request.get("budget_seconds", 300.0)))
-    store = cache.store(request["redis_url"], request["prefix"])
-    members = {
-        t: oof_array(b)
-        for t, b in store.library_members(request["job_id"], request["families"]).items()
-    }
+    budget = ex.Budget(float(request.get("budget_seconds", 0.0)))
     top = request.get("top") or []
-    out: dict[str, Any] = {"honest": ex.honest_winner(members, data, metric), "skipped": []}
-    out["ensembles"] = ex.ensemble_diagnostics(
-        request.get("library") or [],
-        members,
-        {int(k): v for k, v in request["scores"].items()},
-        data,
-    )
-    cand_scores = {c["id"]: float(c["score"]) for c in top if "score" in c}
-    total = budget.left()
-    if request.get("leakage_needed"):  # normally done before the search; never skipped
-        out["leakage"] = leakage(request, cache)
-    parts = (  # cheapest first; each part may use its share of the budget, never more
-        ("significance", 0.55, lambda b: ex.significance(top, data, metric, seed, b)),
-        ("bias_variance", 0.25, lambda b: ex.bias_variance_top(top, data, seed, b)),
-        (
-            "composites",
-            0.2,
-            lambda b: ex.composite_diagnostics(top, cand_scores, data, metric, seed, b),
-        ),
-    )
-    # each part does at least its first item (the winner, or #1 against #2), unless the job's
-    # deadline left too little time for explanations that fit models at all
-    fits_allowed = bool(request.get("fits_allowed", True))
-    out["not_run"] = {}
-    for name, share, part in parts:
-        if not fits_allowed:
-            out[name] = []
-            out["skipped"].append(name)
-            out["not_run"][name] = "the job's deadline left too little time for refits"
-            continue
-        out[name] = part(ex.Budget(min(budget.left(), share * total)))
-        if not out[name] and name != "composites":
-            out["skipped"].append(name)
-            out["not_run"][name] = (
-                "only one candidate, nothing to compare with"
-                if name == "significance" and len(top) < 2
-                else "no time left in its share of the explanation budget"
-            )
-    return out
+    part = request["part"]
+    explain_pause(part)
+    if part == "ensembles":
+        store = cache.store(request["redis_url"], request["prefix"])
+        members = {
+            t: oof_array(b)
+            for t, b in store.library_members(request["job_id"], request["families"]).items()
+        }
+        scores = {int(k): v for k, v in request["scores"].items()}
+        return ex.ensemble_diagnostics(request.get("library") or [], members, scores, data)
+    if part == "leakage":  # normally run before the search; here when that did not happen
+        return leakage(request, cache)
+    if part == "significance":
+        return ex.significance(top, data, metric, seed, budget)
+    if part == "bias_variance":
+        return ex.bias_variance_top(top, data, seed, budget)
+    if part == "composites":
+        scores = {c["id"]: float(c["score"]) for c in top if "score" in c}
+        return ex.composite_diagnostics(top, scores, data, metric, seed, budget)
+    raise ValueError(f"unknown explanation part {part!r}")
 
 
 __all__ = ["DataCache", "evaluate", "explain", "library", "refit"]

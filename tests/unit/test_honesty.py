@@ -262,7 +262,7 @@ def test_selection_optimism_of_noise_candidates_matches_their_excess_over_chance
     # AUC above 0.5 (the true AUC of each); the optimism is that excess. Above the row cap the
     # rows are subsampled, and the figure stays of the same size.
     rng = np.random.default_rng(3)
-    for n in (400, honesty.OPTIMISM_MAX_ROWS + 4000):
+    for n in (400, honesty.SELECTION_MAX_ROWS + 4000):
         y = np.array([0, 1] * (n // 2))
         preds = [_noise_proba(rng, n) for _ in range(100)]
         best_cv = max(metrics.score("roc_auc", y, p, np.array([0, 1])) for p in preds)

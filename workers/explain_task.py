@@ -1,0 +1,240 @@
+"""The explanations of a committed job: their own task, their own budget, one fenced commit.
+
+Finalize commits the best pipeline by the job's deadline and enqueues this task with the
+explanations marked pending. Here each part runs in the trial process under a hard timeout
+(its share of the budget), so a part that overruns loses only itself and is recorded as not
+run, with the reason; unused time passes to the later parts. The result is committed once per
+epoch (``JobStore.commit_explanations``), so a duplicate task or one made stale by ``extend``
+changes nothing; the sweep re-enqueues the task when its worker died.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import time
+from typing import Any
+
+from tuttiml.service.explanations import (
+    EXPLAIN_VERSION,
+    ExplainState,
+    PartStatus,
+    not_run_record,
+)
+from tuttiml.service.spec import natural
+from tuttiml.service.store import JobState
+from tuttiml.workers.child import ChildFailure, TrialCrashed
+from tuttiml.workers.context import WorkerContext
+from tuttiml.workers.finalize import Finalizer, refit_seconds
+
+log = logging.getLogger(__name__)
+TOP_N = 5
+PARETO_REFITS = 3
+#: Share of the budget each part that fits models may use; unused time flows to later parts.
+SHARES: dict[str, float] = {
+    "leakage": 0.15,
+    "significance": 0.35,
+    "bias_variance": 0.2,
+    "composites": 0.15,
+    "pareto": 0.15,
+}
+#: A part aims to finish within this share of its slot; the slot itself is a hard timeout.
+INNER = 0.85
+#: Seconds the diagnostics of library ensembles (no fits, stored predictions only) may take.
+ENSEMBLES_TIMEOUT = 120.0
+#: A task started this many times for one epoch (its worker died each time) gives up.
+MAX_ATTEMPTS = 3
+
+
+class Explainer:
+    """Computes and commits the explanations of one job's committed epoch."""
+
+    def __init__(self, ctx: WorkerContext, job_id: str) -> None:
+        self.fin = Finalizer(ctx, job_id)  # spec, record, candidates and refits are shared
+        self.ctx, self.job_id, self.store = ctx, job_id, ctx.store
+        self.spec, self.epoch = self.fin.spec, self.fin.epoch
+
+    def log(self, line: str) -> None:
+        log.info("job %s %s", self.job_id, line)
+        with contextlib.suppress(Exception):
+            self.store.log(self.job_id, f"[{self.ctx.name}] explain: {line}")
+
+    def run(self) -> str:
+        rec = self.store.job(self.job_id)
+        extras = self.store.extras(self.job_id)
+        pending = extras.get("explain") or {}
+        if str(rec.get("committed_epoch")) != self.epoch or pending.get("epoch") != self.epoch:
+            return "nothing to explain"
+        budget = float(pending.get("budget_seconds") or 0.0)
+        attempt = self.store.explain_started(self.job_id, self.epoch)
+        if attempt == 0:
+            return "already explained"
+        if attempt > MAX_ATTEMPTS:
+            why = f"gave up after {MAX_ATTEMPTS} attempts (the worker died each time)"
+            return self.commit(not_run_record(self.epoch, budget, why, state=ExplainState.FAILED))
+        if JobState(rec["state"]) is not JobState.FINISHED:
+            why = f"the job is {rec['state']}"
+            return self.commit(not_run_record(self.epoch, budget, why, state=ExplainState.DONE))
+        self.log(f"start (attempt {attempt}, budget {budget:.0f} s)")
+        doc, artifacts, pareto = self.explain(budget, extras)
+        return self.commit(doc, artifacts=artifacts, extras={"pareto": pareto})
+
+    def commit(
+        self,
+        doc: dict[str, Any],
+        *,
+        artifacts: dict[str, tuple[bytes, dict[str, Any]]] | None = None,
+        extras: dict[str, Any] | None = None,
+    ) -> str:
+        ok = self.store.commit_explanations(
+            self.job_id, self.epoch, explain=doc, artifacts=artifacts or {}, extras=extras
+        )
+        self.log(f"{'committed' if ok else 'duplicate or stale, nothing changed'}")
+        return "committed" if ok else "duplicate"
+
+    # ------------------------------------------------------------------ the parts
+    def explain(
+        self, budget: float, extras: dict[str, Any]
+    ) -> tuple[dict[str, Any], dict[str, tuple[bytes, dict[str, Any]]], list[dict[str, Any]]]:
+        """Every part within ``budget`` seconds: the record, the Pareto refits and points."""
+        t0 = time.monotonic()
+        end = t0 + budget
+        board = self.store.board(self.job_id)
+        library = list(extras.get("library") or [])
+        candidates = self.fin.candidates(board, library) if board else []
+        top = [
+            {
+                "id": c["id"],
+                "family": c["family"],
+                "params": c["members"][0]["params"],
+                "score": c["score"],
+            }
+            for c in candidates
+            if c["kind"] == "trial"
+        ][:TOP_N]
+        common = {
+            "families": list(self.spec.family_names),
+            "top": top,
+            "library": library,
+            "scores": {str(r["number"]): float(r["score"]) for r in board},
+            "dropped": self.fin.record.get("dropped") or {},
+        }
+        doc: dict[str, Any] = {
+            "version": EXPLAIN_VERSION,
+            "state": ExplainState.DONE.value,
+            "epoch": self.epoch,
+            "budget_seconds": budget,
+            "parts": {},
+        }
+        doc["ensembles"] = self.part(doc, "ensembles", common, 0.0, ENSEMBLES_TIMEOUT)
+        artifacts: dict[str, tuple[bytes, dict[str, Any]]] = {}
+        pareto: list[dict[str, Any]] = []
+        names = list(SHARES)
+        for i, name in enumerate(names):
+            left = end - time.monotonic()
+            slot = left * SHARES[name] / sum(SHARES[n] for n in names[i:])
+            if name == "leakage" and "findings" in (extras.get("leakage") or {}):
+                doc["parts"][name] = {"status": PartStatus.DONE.value, "before_search": True}
+            elif budget <= 0:
+                self.not_run(doc, name, "explain_seconds is 0")
+            elif slot < 0.5:
+                self.not_run(doc, name, f"no time left of the {budget:.0f} s budget")
+            elif name == "pareto":
+                best = str((extras.get("best") or {}).get("id", ""))
+                pareto = self.pareto(doc, candidates, board, best, artifacts, slot)
+            else:
+                doc[name] = self.part(doc, name, common, INNER * slot, slot)
+        doc["seconds"] = time.monotonic() - t0
+        return doc, artifacts, pareto
+
+    def part(
+        self, doc: dict[str, Any], name: str, common: dict[str, Any], inner: float, hard: float
+    ) -> list[dict[str, Any]]:
+        """One part in the trial process, killed at ``hard`` seconds (then: not run)."""
+        t = time.monotonic()
+        try:
+            _, rows = self.ctx.trials.request(
+                "explain",
+                self.fin.request(part=name, budget_seconds=inner, **common),
+                timeout=hard,
+            )
+        except TrialCrashed as exc:
+            why = str(exc)
+            if why == "timeout":
+                why = f"stopped at its time limit ({hard:.0f} s)"
+            self.not_run(doc, name, why)
+            return []
+        except ChildFailure as exc:
+            self.not_run(doc, name, f"error: {exc}")
+            return []
+        doc["parts"][name] = {
+            "status": PartStatus.DONE.value,
+            "seconds": round(time.monotonic() - t, 3),
+        }
+        return list(rows)
+
+    def not_run(self, doc: dict[str, Any], name: str, reason: str) -> None:
+        doc["parts"][name] = {"status": PartStatus.NOT_RUN.value, "reason": reason}
+        doc.setdefault(name, None)
+        self.log(f"{name} not run: {reason}")
+
+    def pareto(
+        self,
+        doc: dict[str, Any],
+        candidates: list[dict[str, Any]],
+        board: list[dict[str, Any]],
+        best: str,
+        artifacts: dict[str, tuple[bytes, dict[str, Any]]],
+        seconds: float,
+    ) -> list[dict[str, Any]]:
+        """Score vs predict latency front; its best few members are refitted while time allows.
+
+        A refit starts only when its estimated time (fold-fit seconds ÷ (folds − 1), doubled)
+        fits in the ``seconds`` left, and is killed when they run out.
+        """
+        from tuttiml.workers.diagnostics import pareto_front
+
+        t = time.monotonic()
+        end = t + seconds
+        points = [
+            {
+                "id": f"t{r['number']}",
+                "score": float(r["score"]),
+                "predict_ms": float(r.get("predict_ms", float("nan"))),
+            }
+            for r in board
+        ]
+        front = set(pareto_front(points))
+        by_id = {c["id"]: c for c in candidates}
+        rows = {f"t{r['number']}": r for r in board}
+        refits, skipped = 0, 0
+        for p in sorted(points, key=lambda q: -q["score"]):
+            if p["id"] not in front or p["id"] == best or refits >= PARETO_REFITS:
+                continue
+            left = end - time.monotonic()
+            if 2 * refit_seconds([rows[p["id"]]], self.spec.folds) > left:
+                skipped += 1
+                continue
+            try:
+                artifacts[f"pareto-{p['id']}"] = self.fin.refit(by_id[p["id"]], timeout=left)
+                refits += 1
+            except (ChildFailure, TrialCrashed, ValueError) as exc:
+                self.log(f"pareto refit of {p['id']} failed: {exc}")
+        doc["parts"]["pareto"] = {
+            "status": PartStatus.DONE.value,
+            "seconds": round(time.monotonic() - t, 3),
+            "refits": refits,
+            "refits_skipped_for_time": skipped,
+        }
+        return [
+            {
+                "candidate": p["id"],
+                "score": natural(self.spec.metric, p["score"]),
+                "predict_ms": p["predict_ms"],
+                "on_front": p["id"] in front,
+            }
+            for p in points
+        ]
+
+
+__all__ = ["Explainer"]
