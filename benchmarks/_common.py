@@ -76,7 +76,7 @@ with contextlib.suppress(ValueError):  # not the main thread: leave signals alon
 
 
 class Workers:
-    """``python -m workers --processes N`` in its own session (process group), stopped by id.
+    """``python -m tuttiml.workers --processes N`` in its own session, stopped by group id.
 
     Args:
         url: Redis URL.
@@ -98,7 +98,7 @@ class Workers:
         cmd = [
             sys.executable,
             "-m",
-            "workers",
+            "tuttiml.workers",
             "--processes",
             str(processes),
             "--redis-url",

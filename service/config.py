@@ -42,11 +42,12 @@ class Settings:
         lease_seconds: expiry of a running trial's lease; a trial whose lease lapsed is reaped.
         max_upload_bytes: size cap of one uploaded table (encoded Parquet bytes).
         artifact_key: optional HMAC key that signs stored pipelines (``TUTTI_ARTIFACT_KEY``).
-        explain_min_seconds: the least time finalize gives explanations that fit models
-            (``TUTTI_EXPLAIN_MIN_SECONDS``); with less time left before the deadline they are
-            skipped. Lower it for quick jobs whose explanations nobody reads.
-        explain_max_seconds: the most time finalize gives explanations
-            (``TUTTI_EXPLAIN_MAX_SECONDS``); otherwise a quarter of the search time.
+        explain_min_seconds: the floor of the default explanation time
+            (``TUTTI_EXPLAIN_MIN_SECONDS``); the explanations run after the model is committed,
+            for the spec's ``explain_seconds`` or else a quarter of the search time within
+            these bounds.
+        explain_max_seconds: the cap of the default explanation time
+            (``TUTTI_EXPLAIN_MAX_SECONDS``).
     """
 
     redis_url: str | None = None

@@ -68,15 +68,17 @@ def significance(
     k = min(data.n_folds, 5)
     splits = repeated_kfold_indices(len(rows), y, data.task, repeats=REPEATS, folds=k, seed=seed)
     scores: dict[str, list[float]] = {}
-    for i, cand in enumerate(top):
-        if budget.left() <= 0 and i >= 2:  # #1 and #2 always, so one comparison exists
-            break
+    for cand in top:  # best first; a candidate that cannot finish in time ends the part
         est = _build(cand, data, seed)
         vals = []
         for train, test in splits:
+            if budget.left() <= 0:
+                break
             fitted = clone(est).fit(X.iloc[train], y[train])
             pred = metrics.predictions(fitted, X.iloc[test], data.task, data.classes)
             vals.append(metrics.score(metric, y[test], pred, data.classes))
+        if len(vals) < len(splits):
+            break
         scores[cand["id"]] = vals
     if not scores:
         return []

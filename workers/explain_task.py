@@ -42,6 +42,8 @@ SHARES: dict[str, float] = {
 INNER = 0.85
 #: Seconds the diagnostics of library ensembles (no fits, stored predictions only) may take.
 ENSEMBLES_TIMEOUT = 120.0
+#: Parts whose empty result means they did not get to run (others may find nothing).
+NEED_A_RESULT = ("significance", "bias_variance")
 #: A task started this many times for one epoch (its worker died each time) gives up.
 MAX_ATTEMPTS = 3
 
@@ -163,15 +165,29 @@ class Explainer:
             if why == "timeout":
                 why = f"stopped at its time limit ({hard:.0f} s)"
             self.not_run(doc, name, why)
+            self.warm(common)
             return []
         except ChildFailure as exc:
             self.not_run(doc, name, f"error: {exc}")
+            return []
+        if not rows and name in NEED_A_RESULT:
+            self.not_run(doc, name, f"no candidate finished within its {inner:.0f} s")
             return []
         doc["parts"][name] = {
             "status": PartStatus.DONE.value,
             "seconds": round(time.monotonic() - t, 3),
         }
         return list(rows)
+
+    def warm(self, common: dict[str, Any]) -> None:
+        """Start a fresh trial process with the table loaded after one was killed, so the
+        next part's slot is not spent on start-up."""
+        try:
+            self.ctx.trials.request(
+                "prepare", self.fin.request(**common), timeout=max(self.spec.trial_timeout, 60)
+            )
+        except (ChildFailure, TrialCrashed) as exc:
+            self.log(f"could not restart the trial process: {exc}")
 
     def not_run(self, doc: dict[str, Any], name: str, reason: str) -> None:
         doc["parts"][name] = {"status": PartStatus.NOT_RUN.value, "reason": reason}
