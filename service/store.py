@@ -581,7 +581,7 @@ class JobStore:
         """
         key = self.keys.job(job_id)
         for _ in range(50):
-            with self.r.pipeline(transaction=True) as pipe:
+            with self._r.pipeline(transaction=True) as pipe:
                 try:
                     pipe.watch(key)
                     if not self._explainable(pipe, key, epoch):
@@ -624,7 +624,7 @@ class JobStore:
     def pending_explanations(self, job_id: str) -> float | None:
         """The budget of the committed epoch's explanations while they are not committed yet
         (pending or running), else None."""
-        state, committed, explained, budget = self.r.hmget(
+        state, committed, explained, budget = self._r.hmget(
             self.keys.job(job_id),
             ["explain_state", "committed_epoch", "explain_epoch", "explain_budget"],
         )
@@ -639,7 +639,7 @@ class JobStore:
         that epoch is no longer committed or already explained: then nothing is written)."""
         key = self.keys.job(job_id)
         for _ in range(50):
-            with self.r.pipeline(transaction=True) as pipe:
+            with self._r.pipeline(transaction=True) as pipe:
                 try:
                     pipe.watch(key)
                     if not self._explainable(pipe, key, epoch):

@@ -38,7 +38,7 @@ def _lost_explanations(ctx: WorkerContext, job_id: str) -> int:
     from tuttiml.workers.finalize import explain_timeout
 
     budget = ctx.store.pending_explanations(job_id)
-    if budget is None or _running_shards(ctx, job_id) or ctx.queue.queued_for(job_id):
+    if budget is None or ctx.store.running_shards(job_id) or ctx.queue.queued_for(job_id):
         return 0
     if not _suspect(ctx, job_id, "explain"):
         return 0
