@@ -78,8 +78,12 @@ class Explainer:
             why = f"the job is {rec['state']}"
             return self.commit(not_run_record(self.epoch, budget, why, state=ExplainState.DONE))
         self.log(f"start (attempt {attempt}, budget {budget:.0f} s)")
-        doc, artifacts, pareto = self.explain(budget, extras)
-        return self.commit(doc, artifacts=artifacts, extras={"pareto": pareto})
+        t0 = time.monotonic()
+        more: dict[str, Any] = {}
+        if not extras.get("selection") and self.spec.library_size > 0:
+            more["selection"] = self.fin.selection()  # finalize had no time for it
+        doc, artifacts, pareto = self.explain(budget, extras, t0)
+        return self.commit(doc, artifacts=artifacts, extras={"pareto": pareto, **more})
 
     def commit(
         self,
@@ -96,10 +100,10 @@ class Explainer:
 
     # ------------------------------------------------------------------ the parts
     def explain(
-        self, budget: float, extras: dict[str, Any]
+        self, budget: float, extras: dict[str, Any], t0: float
     ) -> tuple[dict[str, Any], dict[str, tuple[bytes, dict[str, Any]]], list[dict[str, Any]]]:
-        """Every part within ``budget`` seconds: the record, the Pareto refits and points."""
-        t0 = time.monotonic()
+        """Every part within ``budget`` seconds from ``t0`` (monotonic): the record, the Pareto
+        refits and points."""
         end = t0 + budget
         board = self.store.board(self.job_id)
         library = list(extras.get("library") or [])

@@ -122,3 +122,22 @@ def test_stale_explanations_after_extend_change_nothing(store: JobStore) -> None
     assert store.commit_explanations(job, "0", explain=late, artifacts={"x": (b"X", {})}) is False
     assert store.extras(job)["explain"]["state"] == "pending"
     assert "x" not in store.artifact_names(job)
+
+
+@pytest.mark.parametrize(("left", "expected"), [(30.0, True), (15.0, False)])
+def test_a_late_finalize_goes_straight_to_the_refit(left: float, expected: bool) -> None:
+    """The library step (about LIBRARY_SECONDS = 10 s) runs only when the time left also
+    covers the best trial's refit, doubled: 5 folds, 16 fold-fit seconds → 4 s → 8 s, so it
+    needs 18 s: 30 s left is enough, 15 s is not (the model is due at the deadline)."""
+    import time
+
+    from tuttiml.workers.finalize import LIBRARY_SECONDS, Finalizer
+
+    assert LIBRARY_SECONDS == 10.0
+    fin = Finalizer.__new__(Finalizer)
+    fin.spec = SearchSpec(target="y", folds=5, wall_seconds=100)
+    fin.record = {"started_at": time.time() - 100 + left}
+    fin.job_id = "j"
+    fin.log = lambda line: None  # type: ignore[method-assign]
+    board = [{"number": 0, "score": 0.9, "fit_seconds": 16.0}]
+    assert fin.library_in_time(board) is expected
