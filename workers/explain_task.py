@@ -44,6 +44,8 @@ INNER = 0.85
 ENSEMBLES_TIMEOUT = 120.0
 #: Parts whose empty result means they did not get to run (others may find nothing).
 NEED_A_RESULT = ("significance", "bias_variance")
+#: Seconds kept back from the budget for the commit itself.
+COMMIT_RESERVE = 1.0
 #: A task started this many times for one epoch (its worker died each time) gives up.
 MAX_ATTEMPTS = 3
 
@@ -55,6 +57,7 @@ class Explainer:
         self.fin = Finalizer(ctx, job_id)  # spec, record, candidates and refits are shared
         self.ctx, self.job_id, self.store = ctx, job_id, ctx.store
         self.spec, self.epoch = self.fin.spec, self.fin.epoch
+        self.end = time.monotonic()  # set when the parts start: their shared end
 
     def log(self, line: str) -> None:
         log.info("job %s %s", self.job_id, line)
@@ -104,7 +107,7 @@ class Explainer:
     ) -> tuple[dict[str, Any], dict[str, tuple[bytes, dict[str, Any]]], list[dict[str, Any]]]:
         """Every part within ``budget`` seconds from ``t0`` (monotonic): the record, the Pareto
         refits and points."""
-        end = t0 + budget
+        end = self.end = t0 + budget - min(COMMIT_RESERVE, budget / 10)
         board = self.store.board(self.job_id)
         library = list(extras.get("library") or [])
         candidates = self.fin.candidates(board, library) if board else []
@@ -132,7 +135,9 @@ class Explainer:
             "budget_seconds": budget,
             "parts": {},
         }
-        doc["ensembles"] = self.part(doc, "ensembles", common, 0.0, ENSEMBLES_TIMEOUT)
+        # no fits, so it runs even with a budget of 0; otherwise within the budget too
+        hard = ENSEMBLES_TIMEOUT if budget <= 0 else min(ENSEMBLES_TIMEOUT, end - time.monotonic())
+        doc["ensembles"] = self.part(doc, "ensembles", common, 0.0, max(hard, 0.5))
         artifacts: dict[str, tuple[bytes, dict[str, Any]]] = {}
         pareto: list[dict[str, Any]] = []
         names = list(SHARES)
@@ -169,7 +174,7 @@ class Explainer:
             if why == "timeout":
                 why = f"stopped at its time limit ({hard:.0f} s)"
             self.not_run(doc, name, why)
-            self.warm(common)
+            self.warm(common, self.end - time.monotonic())
             return []
         except ChildFailure as exc:
             self.not_run(doc, name, f"error: {exc}")
@@ -183,13 +188,13 @@ class Explainer:
         }
         return list(rows)
 
-    def warm(self, common: dict[str, Any]) -> None:
+    def warm(self, common: dict[str, Any], left: float) -> None:
         """Start a fresh trial process with the table loaded after one was killed, so the
-        next part's slot is not spent on start-up."""
+        next part's slot is not spent on start-up (only while budget is left)."""
+        if left < 1.0:
+            return
         try:
-            self.ctx.trials.request(
-                "prepare", self.fin.request(**common), timeout=max(self.spec.trial_timeout, 60)
-            )
+            self.ctx.trials.request("prepare", self.fin.request(**common), timeout=left)
         except (ChildFailure, TrialCrashed) as exc:
             self.log(f"could not restart the trial process: {exc}")
 
