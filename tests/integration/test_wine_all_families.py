@@ -22,6 +22,7 @@ def test_every_family_runs_and_the_winner_matches_the_published_accuracy(
         target="target",
         metric="accuracy",
         max_trials=16,
+        explain_seconds=240,  # ample, so significance and bias/variance finish on a busy box
         parallelism=2,
         seed=0,
         wall_seconds=900,
@@ -50,7 +51,9 @@ def test_every_family_runs_and_the_winner_matches_the_published_accuracy(
     assert job.artifact_meta()["cv_score"] >= 0.96
 
     # the leaderboard explains itself: significance vs #1 and bias/variance of the top
-    assert {"p_value", "distinguishable", "bias", "variance"} <= set(board.columns)
+    assert {"p_value", "distinguishable", "bias", "variance"} <= set(board.columns), status[
+        "explain_parts"
+    ]
     extras = job.extras()
     sel = extras["selection"]  # finalize's one BBC-CV (accuracy: greater is better as stored)
     honest = {

@@ -141,3 +141,23 @@ def test_a_late_finalize_goes_straight_to_the_refit(left: float, expected: bool)
     fin.log = lambda line: None  # type: ignore[method-assign]
     board = [{"number": 0, "score": 0.9, "fit_seconds": 16.0}]
     assert fin.library_in_time(board) is expected
+
+
+def test_the_report_lists_which_checks_ran_and_why_others_did_not() -> None:
+    from tuttiml.service.report import render_report
+
+    doc = _done()
+    doc["parts"]["leakage"] = {"status": "not run", "reason": "stopped at <9 s>"}  # type: ignore[index]
+    rows = [{"part": k, "what": PARTS[k], "status": v} for k, v in part_status(doc).items()]
+    data = {
+        "job": {"id": "j-1"},
+        "metric": "roc_auc",
+        "explanations": {"state": "done", "budget_seconds": 30.0, "seconds": 12.0, "parts": rows},
+    }
+    html = render_report(data)
+    assert "Which checks ran" in html and "budget 30 s" in html
+    assert "not run: stopped at &lt;9 s&gt;" in html  # escaped, with its reason
+    assert html.count("<td>done</td>") == len(PARTS) - 1
+    pending = {**data, "explanations": {"state": "pending", "parts": []}}
+    assert "made before they finished" in render_report(pending)
+    assert "Which checks ran" not in render_report({"job": {"id": "j-1"}, "metric": "roc_auc"})
