@@ -1,0 +1,124 @@
+"""The shipped portfolio: valid, enqueue-ready configurations in a stable order, learned on
+tables that are kept apart from the comparison tables and from the reserved R package."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import optuna
+import pytest
+from tuttiml.workers import portfolio
+from tuttiml.workers.families import FAMILIES, get_family
+from tuttiml.workers.families._base import ALL_TASKS
+from tuttiml.workers.portfolio import PortfolioError, load_portfolio, portfolio_for
+
+from tests.contracts import N_TRAIN, family_data
+
+TASKS = sorted(ALL_TASKS)
+ALL = tuple(FAMILIES)
+MEMBERS = ("single", "bagging", "boosting")
+
+
+@pytest.mark.parametrize("task", TASKS)
+def test_every_configuration_builds_and_fits(task: str) -> None:
+    configs = portfolio_for(task, ALL)
+    assert configs, f"no portfolio for {task}"
+    X, y, ctx = family_data(task)
+    for params in configs:
+        family = params["family"]
+        assert family in MEMBERS, "the portfolio holds members only"
+        fitted = get_family(family).build(params, ctx).fit(X.iloc[:N_TRAIN], y[:N_TRAIN])
+        pred = fitted.predict(X.iloc[N_TRAIN:])
+        assert len(pred) == len(X) - N_TRAIN
+        if task != "regression":
+            assert set(pred) <= set(y)
+        else:
+            assert np.all(np.isfinite(pred))
+
+
+@pytest.mark.parametrize("task", TASKS)
+def test_configurations_enqueue_as_they_are(task: str) -> None:
+    # enqueue_trial hands the fixed values back through suggest_*: a value outside the
+    # family's space would be replaced or rejected, so the trial's params would differ
+    configs = portfolio_for(task, ALL)
+    study = optuna.create_study(direction="maximize")
+    for params in configs:
+        study.enqueue_trial(params)
+    ctx = family_data(task)[2]
+    for params in configs:
+        trial = study.ask()
+        family = trial.suggest_categorical("family", ALL)
+        drawn = {"family": family, **get_family(family).suggest(trial, ctx)}
+        assert drawn == params
+        study.tell(trial, 0.0)
+
+
+@pytest.mark.parametrize("task", TASKS)
+def test_order_is_stable_and_filtering_keeps_it(task: str) -> None:
+    full = portfolio_for(task, ALL)
+    assert portfolio_for(task, list(reversed(ALL))) == full
+    file_order = [e["family"] for e in load_portfolio()["portfolio"][task]]
+    assert [p["family"] for p in full] == file_order
+    for family in MEMBERS:
+        only = portfolio_for(task, [family])
+        assert only == [p for p in full if p["family"] == family]
+    assert portfolio_for(task, ["voting", "stacking"]) == []
+
+
+def _with_file(monkeypatch: pytest.MonkeyPatch, entries: list[dict[str, Any]]) -> None:
+    doc = {"format": 1, "portfolio": {"binary": entries}}
+    monkeypatch.setattr(portfolio, "load_portfolio", lambda: doc)
+
+
+def _lgbm(**change: Any) -> dict[str, Any]:
+    entry = next(e for e in load_portfolio()["portfolio"]["binary"] if e["family"] == "boosting")
+    params = dict(entry["params"])
+    params.update(change)
+    return {"family": "boosting", "params": params}
+
+
+def test_a_categorical_outside_the_space_is_refused(monkeypatch: pytest.MonkeyPatch) -> None:
+    _with_file(monkeypatch, [_lgbm(**{"boosting.kind": "catboost"})])
+    with pytest.raises(PortfolioError, match=r"boosting\.kind='catboost' is not one of"):
+        portfolio_for("binary", ALL)
+
+
+def test_a_number_outside_the_range_is_refused(monkeypatch: pytest.MonkeyPatch) -> None:
+    entry = _lgbm()
+    kind = entry["params"]["boosting.kind"]
+    entry["params"][f"boosting.{kind}.learning_rate"] = 5.0
+    _with_file(monkeypatch, [entry])
+    with pytest.raises(PortfolioError, match=r"learning_rate=5\.0 must be a number in"):
+        portfolio_for("binary", ALL)
+
+
+def test_a_missing_parameter_and_an_unknown_task_are_named(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    entry = _lgbm()
+    kind = entry["params"]["boosting.kind"]
+    del entry["params"][f"boosting.{kind}.learning_rate"]
+    _with_file(monkeypatch, [entry])
+    with pytest.raises(PortfolioError, match="learning_rate' is missing"):
+        portfolio_for("binary", ALL)
+    with pytest.raises(PortfolioError, match="task: must be one of"):
+        portfolio_for("ranking", ALL)
+
+
+def test_the_file_lists_disjoint_tables_and_none_from_the_reserved_package() -> None:
+    doc = load_portfolio()
+    learning = doc["learning_tables"]
+    comparison = doc["comparison_tables"]
+    if doc.get("provisional"):
+        assert learning == [], "a provisional file was learned on nothing"
+        return
+    assert learning and comparison
+    names_l = {t["name"] for t in learning}
+    names_c = {t["name"] for t in comparison}
+    sources_l = {t["source"] for t in learning}
+    sources_c = {t["source"] for t in comparison}
+    assert not names_l & names_c
+    assert not sources_l & sources_c
+    for t in learning + comparison:
+        assert "modeldata" not in t["source"].lower().split("/")[0].split(":")
