@@ -19,6 +19,7 @@ import functools
 import json
 import math
 from collections.abc import Sequence
+from dataclasses import dataclass
 from importlib import resources
 from typing import Any
 
@@ -97,7 +98,9 @@ class _CheckingTrial:
         return float(value)
 
 
-def checked_params(family: str, values: dict[str, Any], task: str, where: str = "") -> dict:
+def checked_params(
+    family: str, values: dict[str, Any], task: str, where: str = ""
+) -> dict[str, Any]:
     """``values`` replayed through ``family``'s ``suggest`` for ``task``: the exact dict the
     sampler would have drawn (keys it does not ask for are dropped).
 
@@ -108,6 +111,49 @@ def checked_params(family: str, values: dict[str, Any], task: str, where: str = 
     fam = get_family(family)
     trial = _CheckingTrial(values, where or f"{family} configuration")
     return fam.suggest(trial, FamilyContext(task=task))  # type: ignore[arg-type]
+
+
+@dataclass(frozen=True)
+class PortfolioEntry:
+    """One portfolio configuration with what the study measured about it.
+
+    Attributes:
+        params: ``{"family": name, "<family>.<param>": value, ...}`` (enqueue-ready).
+        gain: how much it raised the mean best normalised score on the learning tables when
+            the greedy step added it (None in a provisional file).
+        cpu_seconds: its mean CPU seconds per learning table in the study (k-fold CV on at
+            most the study's row cap; None in a provisional file).
+    """
+
+    params: dict[str, Any]
+    gain: float | None
+    cpu_seconds: float | None
+
+
+def portfolio_entries(task: str, families: Sequence[str]) -> list[PortfolioEntry]:
+    """Like :func:`portfolio_for`, with each configuration's measured gain and cost (for a
+    schedule that orders by expected gain per second).
+
+    Raises:
+        PortfolioError: as :func:`portfolio_for`.
+    """
+    if task not in ALL_TASKS:
+        raise PortfolioError(f"task: must be one of {sorted(ALL_TASKS)}; got {task!r}.")
+    wanted = set(families)
+    entries = load_portfolio().get("portfolio", {}).get(task, [])
+    out: list[PortfolioEntry] = []
+    for i, entry in enumerate(entries):
+        family = entry["family"]
+        if family not in wanted or task not in get_family(family).tasks:
+            continue
+        where = f"{PORTFOLIO_FILE}: portfolio.{task}[{i}] ({family})"
+        params = checked_params(family, entry["params"], task, where)
+        out.append(
+            PortfolioEntry(
+                {"family": family, **params}, entry.get("gain"), entry.get("mean_cpu_seconds")
+            )
+        )
+    return out
 
 
 def portfolio_for(task: str, families: Sequence[str]) -> list[dict[str, Any]]:
@@ -125,19 +171,14 @@ def portfolio_for(task: str, families: Sequence[str]) -> list[dict[str, Any]]:
         PortfolioError: ``task`` is unknown, or the file is unreadable or holds a configuration
             outside today's search space (the message names the entry and parameter).
     """
-    if task not in ALL_TASKS:
-        raise PortfolioError(f"task: must be one of {sorted(ALL_TASKS)}; got {task!r}.")
-    wanted = set(families)
-    entries = load_portfolio().get("portfolio", {}).get(task, [])
-    out: list[dict[str, Any]] = []
-    for i, entry in enumerate(entries):
-        family = entry["family"]
-        if family not in wanted or task not in get_family(family).tasks:
-            continue
-        where = f"{PORTFOLIO_FILE}: portfolio.{task}[{i}] ({family})"
-        params = checked_params(family, entry["params"], task, where)
-        out.append({"family": family, **params})
-    return out
+    return [e.params for e in portfolio_entries(task, families)]
 
 
-__all__ = ["PortfolioError", "checked_params", "load_portfolio", "portfolio_for"]
+__all__ = [
+    "PortfolioEntry",
+    "PortfolioError",
+    "checked_params",
+    "load_portfolio",
+    "portfolio_entries",
+    "portfolio_for",
+]
