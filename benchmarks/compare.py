@@ -606,6 +606,8 @@ def parse_args(argv: list[str] | None) -> argparse.Namespace:
 def run(args: argparse.Namespace, store: SplitStore, log: Callable[[str], None]) -> None:
     """Run the chosen splits of every chosen table; results go to ``store`` as they come."""
     loaded = [load_table(n) for n in args.names]
+    # the same data under another name would slip past check_lists: compare contents too
+    tables.check_contents([tables.load(s) for s in tables.LEARNING], loaded)
     with _common.private_redis() as server:
         from tuttiml.service.client import Client
 
