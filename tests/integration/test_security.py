@@ -28,6 +28,7 @@ from rq.job import Job as RQJob
 from sklearn.datasets import load_breast_cancer
 from tuttiml.service.client import Client
 from tuttiml.service.errors import ArtifactError
+from tuttiml.service.queue import ALLOWED_TASKS
 from tuttiml.service.trusted import TRUSTED_TYPES
 
 from tests.conftest import ROOT, RedisProcess, start_workers
@@ -112,94 +113,121 @@ def _run_small_job_with_worker(
 
 
 # --------------------------------------------------------------------------------------------
-# 1-2. Forged queue entries
+# 1-3. Forged queue entries and planted snapshots, served by one worker run
+#
+# Every attack is planted before the worker starts: forged JSON and pickle entries queued ahead
+# of a real job, and pickled "snapshots" wherever Optuna's stock Redis journal would look for
+# them. One burst worker must refuse each forged entry, never unpickle anything, finish the real
+# job and exit 0. (One run instead of one per attack: the worker start-up is the slow part.)
 
 
-def test_forged_json_job_is_refused_by_the_allow_list(
-    client: Client, redis_url: str, prefix: str, tmp_path: Path
-) -> None:
-    marker = tmp_path / "pwned-json"
+def _snapshot_keys(prefix: str, journal: str, job_id: str) -> list[str]:
+    # optuna/storages/journal/_redis.py: save_snapshot/load_snapshot use f"{prefix}:snapshot"
+    # (prefix defaults to ""); cover our journal key and the other plausible prefixes
+    return [
+        f"{journal}:snapshot",
+        f"{prefix}:snapshot",
+        f"{prefix}:job:{job_id}:snapshot",
+        f"{prefix}:job:{job_id}:journal:snapshot",
+        ":snapshot",
+    ]
+
+
+@pytest.fixture(scope="module")
+def attacked(redis_url: str, tmp_path_factory: pytest.TempPathFactory) -> Iterator[dict[str, Any]]:
+    """The worker run with every forged entry and snapshot planted (shared by 1-3 below)."""
+    prefix = f"t{secrets.token_hex(4)}"
+    base = tmp_path_factory.mktemp("attacked")
+    client = Client(url=redis_url, prefix=prefix)
     conn = redis.Redis.from_url(redis_url)
-    forged = rq.Queue(client.keys.queue_name, connection=conn, serializer="json").enqueue(
-        "os.system", f"touch {marker}"
-    )
-    log = tmp_path / "workers.log"
-    job, proc = _run_small_job_with_worker(client, redis_url, prefix, log)
+    markers = {name: base / f"pwned-{name}" for name in ("json", "pickle-func", "pickle-arg")}
+    try:
+        forged_json = rq.Queue(client.keys.queue_name, connection=conn, serializer="json").enqueue(
+            "os.system", f"touch {markers['json']}"
+        )
+        pickled = rq.Queue(client.keys.queue_name, connection=conn)  # RQ's default: pickle
+        # (a) a call of os.system itself; (b) an allowed task name whose argument runs code
+        # when unpickled, so a worker that unpickled before checking the name would be lost
+        by_func = pickled.enqueue(os.system, f"touch {markers['pickle-func']}")
+        by_arg = pickled.enqueue(
+            "tuttiml.workers.tasks.run_shard", _TouchOnUnpickle(markers["pickle-arg"]), 0
+        )
+        job = client.submit(_table().iloc[:TRAIN_ROWS], **SMALL_JOB)
+        journal = client.keys.journal(job.id)
+        snapshots = {}
+        for i, key in enumerate(_snapshot_keys(prefix, journal, job.id)):
+            snapshots[key] = base / f"pwned-snapshot-{i}"
+            client.redis.set(key, _evil_pickle(snapshots[key]))
+        log = base / "workers.log"
+        proc = start_workers(redis_url, prefix, 1, log=log, env=FAST_SHARDS)
+        _wait_exit(proc, log)
+        yield {
+            "client": client,
+            "conn": conn,
+            "job": job,
+            "proc": proc,
+            "log": log,
+            "markers": markers,
+            "forged_json": forged_json,
+            "pickled": pickled,
+            "by_pickle": (by_func, by_arg),
+            "journal": journal,
+            "snapshots": snapshots,
+        }
+    finally:
+        client.redis.delete(":snapshot")
+        client.close()
+        for pattern in (f"{prefix}:*", f"rq:*{prefix}-*"):
+            keys = list(conn.scan_iter(match=pattern, count=1000))
+            if keys:
+                conn.delete(*keys)
 
-    assert not marker.exists()
-    assert proc.returncode == 0, _tail(log)
-    fetched = RQJob.fetch(forged.id, connection=conn, serializer="json")
+
+def _served_the_real_job(run: dict[str, Any]) -> None:
+    log, job = run["log"], run["job"]
+    assert run["proc"].returncode == 0, _tail(log)  # the worker survived every attack
+    status = job.status()
+    assert status["state"] == "finished", (status, _tail(log), job.logs()[-20:])
+    _predicts_held_rows(job)
+
+
+def test_forged_json_job_is_refused_by_the_allow_list(attacked: dict[str, Any]) -> None:
+    run = attacked
+    assert not run["markers"]["json"].exists()
+    _served_the_real_job(run)
+    fetched = RQJob.fetch(run["forged_json"].id, connection=run["conn"], serializer="json")
     assert fetched.get_status() == "failed"
     result = fetched.latest_result()
     exc_text = (result.exc_string if result is not None else None) or str(fetched.exc_info)
     assert "PermissionError" in exc_text and "refused task 'os.system'" in exc_text, exc_text
-    assert "tutti workers run only tuttiml.workers.tasks.finalize_job" in exc_text
-    assert "refused forged or foreign task 'os.system'" in log.read_text()
-    _predicts_held_rows(job)
+    # the refusal names what tutti workers do run (each allow-listed task)
+    assert "tutti workers run only tuttiml.workers.tasks." in exc_text
+    assert all(task in exc_text for task in ALLOWED_TASKS), exc_text
+    assert "refused forged or foreign task 'os.system'" in run["log"].read_text()
 
 
-def test_forged_pickle_jobs_are_never_unpickled(
-    client: Client, redis_url: str, prefix: str, tmp_path: Path
-) -> None:
-    marker_func = tmp_path / "pwned-pickle-func"
-    marker_arg = tmp_path / "pwned-pickle-arg"
-    conn = redis.Redis.from_url(redis_url)
-    pickled = rq.Queue(client.keys.queue_name, connection=conn)  # RQ's default: pickle
-    # (a) a call of os.system itself; (b) an allowed task name whose argument runs code when
-    # unpickled, so a worker that unpickled before checking the name would already be lost
-    by_func = pickled.enqueue(os.system, f"touch {marker_func}")
-    by_arg = pickled.enqueue("tuttiml.workers.tasks.run_shard", _TouchOnUnpickle(marker_arg), 0)
-    log = tmp_path / "workers.log"
-    job, proc = _run_small_job_with_worker(client, redis_url, prefix, log)
-
-    assert not marker_func.exists() and not marker_arg.exists()
-    assert proc.returncode == 0, _tail(log)  # the worker survived and served the real job
-    _predicts_held_rows(job)
-    for forged in (by_func, by_arg):
+def test_forged_pickle_jobs_are_never_unpickled(attacked: dict[str, Any]) -> None:
+    run = attacked
+    assert not run["markers"]["pickle-func"].exists()
+    assert not run["markers"]["pickle-arg"].exists()
+    _served_the_real_job(run)
+    for forged in run["by_pickle"]:
         # read the status without deserialising the payload
-        status = conn.hget(f"rq:job:{forged.id}", "status")
-        assert status == b"failed", (forged.id, status, _tail(log))
-    assert "refused forged or foreign task None" in log.read_text()
-    assert pickled.count == 0
+        status = run["conn"].hget(f"rq:job:{forged.id}", "status")
+        assert status == b"failed", (forged.id, status, _tail(run["log"]))
+    assert "refused forged or foreign task None" in run["log"].read_text()
+    assert run["pickled"].count == 0
 
 
-# --------------------------------------------------------------------------------------------
-# 3. Malicious snapshots where Optuna's stock Redis journal would look for them
-
-
-def test_planted_journal_snapshots_are_never_read(
-    client: Client, redis_url: str, prefix: str, tmp_path: Path
-) -> None:
-    job = client.submit(_table(), **SMALL_JOB)
-    journal = client.keys.journal(job.id)
-    markers: dict[str, Path] = {}
-    # optuna/storages/journal/_redis.py: save_snapshot/load_snapshot use f"{prefix}:snapshot"
-    # (prefix defaults to ""); cover our journal key and the other plausible prefixes
-    for i, key in enumerate(
-        [
-            f"{journal}:snapshot",
-            f"{prefix}:snapshot",
-            f"{prefix}:job:{job.id}:snapshot",
-            f"{prefix}:job:{job.id}:journal:snapshot",
-            ":snapshot",
-        ]
-    ):
-        markers[key] = tmp_path / f"pwned-snapshot-{i}"
-        client.redis.set(key, _evil_pickle(markers[key]))
-    log = tmp_path / "workers.log"
-    proc = start_workers(redis_url, prefix, 1, log=log, env=FAST_SHARDS)
-    try:
-        _wait_exit(proc, log)
-        status = job.status()
-        assert status["state"] == "finished", (status, _tail(log), job.logs()[-20:])
-        assert status["complete"] >= 1
-        created = [k for k, m in markers.items() if m.exists()]
-        assert created == [], f"a planted snapshot was unpickled: {created}"
-        # the journal itself is JSON (one entry per list item), not a pickle
-        first = client.redis.lindex(journal, 0)
-        assert first is not None and first.startswith(b"{")
-    finally:
-        client.redis.delete(":snapshot")
+def test_planted_journal_snapshots_are_never_read(attacked: dict[str, Any]) -> None:
+    run = attacked
+    _served_the_real_job(run)
+    assert run["job"].status()["complete"] >= 1
+    created = [k for k, m in run["snapshots"].items() if m.exists()]
+    assert created == [], f"a planted snapshot was unpickled: {created}"
+    # the journal itself is JSON (one entry per list item), not a pickle
+    first = run["client"].redis.lindex(run["journal"], 0)
+    assert first is not None and first.startswith(b"{")
 
 
 # --------------------------------------------------------------------------------------------
