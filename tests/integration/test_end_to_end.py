@@ -10,6 +10,8 @@ import numpy as np
 import pandas as pd
 import pytest
 from sklearn.datasets import load_breast_cancer
+from sklearn.ensemble import HistGradientBoostingClassifier
+from sklearn.model_selection import train_test_split
 
 from tests.conftest import ROOT, start_workers
 
@@ -22,13 +24,19 @@ def _breast_cancer() -> pd.DataFrame:
     return frame
 
 
+def _split(frame: pd.DataFrame) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """(rows the job searches and refits on, 100 stratified rows it never sees)."""
+    train, held = train_test_split(frame, test_size=100, stratify=frame["benign"], random_state=0)
+    return train.reset_index(drop=True), held.reset_index(drop=True)
+
+
 def test_two_workers_search_breast_cancer(
     client,
     redis_url: str,
     prefix: str,  # type: ignore[no-untyped-def]
     tmp_path: Path,
 ) -> None:
-    frame = _breast_cancer()
+    frame, held = _split(_breast_cancer())
     job = client.submit(
         frame,
         target="benign",
@@ -83,12 +91,22 @@ def test_two_workers_search_breast_cancer(
     }
     assert all(v == "done" or v.startswith("not run: ") for v in status["explain_parts"].values())
 
+    # the exported winner on 100 rows the job never saw, against scikit-learn's histogram
+    # gradient boosting (the library's own boosted trees, default settings) fitted on the
+    # same rows
     model = job.best_pipeline()
-    raw = frame.drop(columns="benign").head(50)
+    raw = held.drop(columns="benign")
     pred = model.predict(raw)
     assert set(np.unique(pred)) <= {0, 1}
-    assert (pred == frame["benign"].head(50).to_numpy()).mean() > 0.9
-    assert model.predict_proba(raw).shape == (50, 2)
+    accuracy = (pred == held["benign"].to_numpy()).mean()
+    reference = HistGradientBoostingClassifier(random_state=0)
+    reference.fit(frame.drop(columns="benign"), frame["benign"])
+    ref_accuracy = (reference.predict(raw) == held["benign"].to_numpy()).mean()
+    # common practice: on 100 rows one row is a point; the winner may trail by three
+    assert accuracy >= ref_accuracy - 0.03, (accuracy, ref_accuracy)
+    # the published ~97.5% above, less 3 standard errors of a 100-row share (3 x 0.016)
+    assert accuracy >= 0.92, accuracy
+    assert model.predict_proba(raw).shape == (100, 2)
 
     # export + predict from the command line, as a user would
     out = tmp_path / "model.skops"

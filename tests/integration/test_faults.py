@@ -236,7 +236,9 @@ def test_sigterm_finishes_the_current_trial_and_exits(
         lambda: next((x for x in client.workers() if x.get("trial") is not None), None), 90
     )
     os.kill(w.pid, signal.SIGTERM)
-    assert w.wait(timeout=60) is not None
+    # a clean stop: the launcher exits 0 once its worker finished the trial and stopped (a
+    # worker killed by the signal would make it exit 15, a crash 1)
+    assert w.wait(timeout=60) == 0, (tmp_path / "w.log").read_text()[-3000:]
     rows = {r["number"]: r for r in client.store.trial_rows(job.id)}
     assert rows[beat["trial"]]["state"] in ("complete", "pruned", "failed")
     assert TrialState.RUNNING not in _study_states(client, job.id)

@@ -10,10 +10,13 @@ import pytest
 from lightgbm import LGBMClassifier
 from numpy.testing import assert_allclose
 from sklearn.base import clone
+from sklearn.compose import ColumnTransformer
 from sklearn.ensemble import BaggingClassifier, BaggingRegressor, RandomForestClassifier
+from sklearn.impute import SimpleImputer
 from sklearn.linear_model import LogisticRegression, Ridge
 from sklearn.model_selection import KFold, StratifiedKFold, cross_val_predict, train_test_split
 from sklearn.pipeline import Pipeline
+from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, StandardScaler, TargetEncoder
 from sklearn.tree import DecisionTreeClassifier, DecisionTreeRegressor
 from tuttiml.service.errors import InvalidSpecError
 from tuttiml.service.spec import KNOWN_FAMILIES
@@ -29,7 +32,6 @@ from tuttiml.workers.families._learners import (
     LEARNERS,
     default_members,
     learner_names,
-    make_preprocessor,
 )
 
 from tests.contracts import N_TRAIN, FamilyContract, family_data
@@ -105,12 +107,16 @@ def test_stacking_equals_hand_computation(task: str) -> None:
     # Hand computation following the StackingClassifier/Regressor user guide: the meta-model
     # is fitted on cross_val_predict outputs of the members (int cv = StratifiedKFold for
     # classifiers, KFold for regressors, no shuffling); for two classes only the second
-    # probability column is kept; members are refitted on all rows for prediction.
-    prep = make_preprocessor(ctx, scale=True, encoding="onehot")
-    Z, Z_test = prep.fit_transform(X, y), None
-    Z_test = prep.transform(X_test)
-    models = [LEARNERS[n].model(params, ctx, f"stacking.{n}") for n in members]
+    # probability column is kept; members are refitted on all rows for prediction. Built from
+    # scikit-learn alone: the stack's shared preprocessing as documented in
+    # make_preprocessor (scaled, one-hot) and the members' default configurations.
+    prep = _documented_preprocessing(task, scale=True)
+    Z, Z_test = prep.fit_transform(X, y), prep.transform(X_test)
     if task == "binary":
+        models: list[Any] = [
+            LogisticRegression(C=1.0, max_iter=1000, random_state=0),
+            DecisionTreeClassifier(max_depth=6, min_samples_leaf=5, random_state=0),
+        ]
         cv: Any = StratifiedKFold(3)
         oof = [
             cross_val_predict(clone(m), Z, y, cv=cv, method="predict_proba")[:, 1:] for m in models
@@ -120,11 +126,65 @@ def test_stacking_equals_hand_computation(task: str) -> None:
         want = meta.predict_proba(np.hstack([m.predict_proba(Z_test)[:, 1:] for m in full]))
         assert_allclose(est.predict_proba(X_test), want, rtol=1e-6, atol=1e-9)
     else:
+        models = [
+            Ridge(alpha=1.0, random_state=0),
+            DecisionTreeRegressor(max_depth=6, min_samples_leaf=5, random_state=0),
+        ]
         oof = [cross_val_predict(clone(m), Z, y, cv=KFold(3)) for m in models]
         meta = Ridge(alpha=0.5, random_state=0).fit(np.column_stack(oof), y)
         full = [clone(m).fit(Z, y) for m in models]
         want = meta.predict(np.column_stack([m.predict(Z_test) for m in full]))
         assert_allclose(est.predict(X_test), want, rtol=1e-6, atol=1e-9)
+
+
+def _documented_preprocessing(
+    task: str, *, scale: bool, encoding: str = "onehot"
+) -> ColumnTransformer:
+    """``make_preprocessor``'s documented configuration, from scikit-learn classes only.
+
+    ``family_data``'s columns: x0..x3 numeric (median imputation with indicators, scaled when
+    ``scale``), ``color`` low-cardinality (a constant level for missing values, then one-hot
+    with levels under 5 rows pooled and at most 30 columns, or ordinal codes with unknown
+    levels at -1, levels under 5 rows pooled and at most 60), ``city`` high-cardinality
+    (constant fill, target encoding cross-fitted on seeded shuffled 5-fold splits, stratified
+    for classes, scaled when ``scale``).
+    """
+
+    def scaled(steps: list[tuple[str, Any]]) -> Pipeline:
+        return Pipeline([*steps, ("scale", StandardScaler())] if scale else steps)
+
+    fill = ("fill", SimpleImputer(strategy="constant", fill_value="__missing__"))
+    if encoding == "onehot":
+        encoder: Any = OneHotEncoder(
+            handle_unknown="infrequent_if_exist",
+            min_frequency=5,
+            max_categories=30,
+            sparse_output=False,
+            dtype=np.float32,
+        )
+    else:
+        encoder = OrdinalEncoder(
+            handle_unknown="use_encoded_value",
+            unknown_value=-1,
+            min_frequency=5,
+            max_categories=60,
+            dtype=np.float32,
+        )
+    regression = task == "regression"
+    folds: Any = (KFold if regression else StratifiedKFold)(5, shuffle=True, random_state=0)
+    target_type = "continuous" if regression else task
+    impute = SimpleImputer(strategy="median", add_indicator=True, keep_empty_features=True)
+    return ColumnTransformer(
+        [
+            ("num", scaled([("impute", impute)]), [f"x{i}" for i in range(4)]),
+            ("cat", Pipeline([fill, ("encode", encoder)]), ["color"]),
+            (
+                "high",
+                scaled([fill, ("encode", TargetEncoder(target_type=target_type, cv=folds))]),
+                ["city"],
+            ),
+        ]
+    ).set_output(transform="pandas")
 
 
 def test_soft_vote_is_weighted_mean_of_member_probabilities() -> None:
@@ -205,7 +265,7 @@ def test_bagging_matches_sklearn_bagging_built_directly(task: str) -> None:
     )
     direct = Pipeline(
         [
-            ("prep", make_preprocessor(ctx, scale=False, encoding="ordinal")),
+            ("prep", _documented_preprocessing(task, scale=False, encoding="ordinal")),
             (
                 "model",
                 bag(
@@ -220,7 +280,8 @@ def test_bagging_matches_sklearn_bagging_built_directly(task: str) -> None:
             ),
         ]
     ).fit(X, y)
-    # scikit-learn's BaggingClassifier/Regressor with the same parameters and seed.
+    # scikit-learn's BaggingClassifier/Regressor with the same parameters and seed, behind the
+    # documented preprocessing built from scikit-learn classes.
     if task == "binary":
         assert_allclose(got_est.predict_proba(X_test), direct.predict_proba(X_test))
     else:
@@ -239,7 +300,7 @@ def test_random_forest_choice_matches_sklearn_forest() -> None:
     got = FAMILIES["bagging"].build(params, ctx).fit(X, y).predict_proba(X_test)
     direct = Pipeline(
         [
-            ("prep", make_preprocessor(ctx, scale=False, encoding="ordinal")),
+            ("prep", _documented_preprocessing("binary", scale=False, encoding="ordinal")),
             (
                 "model",
                 RandomForestClassifier(
@@ -253,7 +314,8 @@ def test_random_forest_choice_matches_sklearn_forest() -> None:
             ),
         ]
     ).fit(X, y)
-    # scikit-learn's RandomForestClassifier with the same parameters and seed.
+    # scikit-learn's RandomForestClassifier with the same parameters and seed, behind the
+    # documented preprocessing built from scikit-learn classes.
     assert_allclose(got, direct.predict_proba(X_test))
 
 
