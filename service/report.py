@@ -23,10 +23,10 @@ is left out, so a job that has just started still renders::
                  "target_stats": {name: value} | null,      # regression
                  "warnings": [str, ...]},
      "leaderboard": [{"rank", "candidate", "family", "members",  # members: list of names or int
-                      "score", "std",                  # CV mean and std, natural sign
+                      "score", "score_std",            # CV mean and std, natural sign
                       "fit_seconds", "predict_ms",     # predict_ms: per 1,000 rows
-                      "size_bytes",
-                      "mean_diff", "p_value", "distinguishable"}],  # vs rank 1; optional
+                      "size_bytes", "exported",        # exported: the pipeline tutti exports
+                      "diff_vs_rank1", "p_value", "distinguishable"}],  # vs rank 1; optional
      "trials": [{"number", "family", "state", "score", "finished_at"}],  # score natural sign
      "honest": {"winner_cv", "bbc_estimate", "bbc_low", "bbc_high", "holdout", "warning"},
      "explanations": {"state": "pending" | "running" | "done" | "failed",
@@ -67,6 +67,18 @@ __all__ = ["render_report", "write_report"]
 # Okabe–Ito colours (readable with the common colour-vision deficiencies), yellow left out.
 _PALETTE = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#D55E00", "#56B4E9", "#000000")
 _GREY = "#9a9a9a"
+#: One colour per family, the same in every report whatever families a job searched; a
+#: family missing here (a new one) is drawn grey until it gets its own entry.
+FAMILY_COLORS: dict[str, str] = {
+    "single": "#56B4E9",
+    "bagging": "#0072B2",
+    "boosting": "#D55E00",
+    "voting": "#009E73",
+    "stacking": "#CC79A7",
+    "blending": "#E69F00",
+    "library:selection": "#000000",
+    "library:meta": "#7a5c00",
+}
 _PLOT_W, _PLOT_H = 540, 330
 _MARGIN = {"left": 64, "right": 18, "top": 34, "bottom": 48}
 
@@ -89,6 +101,7 @@ td.num,th.num{text-align:right;font-variant-numeric:tabular-nums}
 td.num,td:nth-child(-n+3){white-space:nowrap}
 tbody tr:nth-child(even){background:#fafbfc}
 .tag{display:inline-block;padding:0 7px;border-radius:9px;font-size:12px;background:#e3eef7}
+.tag.exported{background:#0072B2;color:#fff;font-weight:600}
 .bar{display:inline-block;height:9px;background:var(--accent);border-radius:2px;
 vertical-align:middle;margin-right:6px}
 .cards{display:flex;flex-wrap:wrap;gap:12px}
@@ -560,7 +573,8 @@ _BBC_NOTE = (
     "how much better the plain score looks than the corrected one."
 )
 _TTEST_NOTE = (
-    "Difference and p-value compare each candidate with #1 on the same folds using the corrected "
+    "diff_vs_rank1 and p_value compare each candidate with rank 1 on the same folds using the "
+    "corrected "
     "repeated k-fold t-test (Nadeau and Bengio, 2003; Bouckaert and Frank, 2004); “not "
     "distinguishable” means p ≥ 0.05. The test is not corrected for #1 having been picked as the "
     "best of many candidates, so a small p-value is weaker evidence than it looks."
@@ -660,36 +674,60 @@ _FLAG: dict[Any, str] = {
 
 
 def _leaderboard_row(r: Mapping[str, Any], sig: bool) -> list[str]:
-    """The cells of one leaderboard row (escaped)."""
-    cells = [_e(r.get("rank", "–")), _e(r.get("candidate")), _e(r.get("family"))]
-    cells += [_members_text(r.get("members")), f"{_fmt(r.get('score'))} ± {_fmt(r.get('std'))}"]
+    """The cells of one leaderboard row (escaped); the exported candidate carries a tag."""
+    name = _e(r.get("candidate"))
+    if r.get("exported") is True:
+        name += ' <span class="tag exported">exported</span>'
+    cells = [_e(r.get("rank", "–")), name, _e(r.get("family"))]
+    cells += [_members_text(r.get("members")), _fmt(r.get("score")), _fmt(r.get("score_std"))]
     cells += [_fmt(r.get("fit_seconds"), 2), _fmt(r.get("predict_ms"), 2)]
     cells.append(_fmt_bytes(r.get("size_bytes")))
     if sig:
-        diff = "reference" if _num(r.get("rank")) == 1 else _fmt(r.get("mean_diff"), sign=True)
+        diff = "reference" if _num(r.get("rank")) == 1 else _fmt(r.get("diff_vs_rank1"), sign=True)
         cells += [diff, _fmt_p(r.get("p_value"))]
         cells.append(_FLAG.get(r.get("distinguishable"), "–"))
     return cells
 
 
+def _exported_note(rows: Sequence[Mapping[str, Any]]) -> str:
+    """Which candidate the exported pipeline is, and why it may not be rank 1."""
+    chosen = [r for r in rows if r.get("exported") is True]
+    if not chosen:
+        return '<p class="small">No candidate is exported yet (the job is not final).</p>'
+    r = chosen[0]
+    why = (
+        ""
+        if _num(r.get("rank")) == 1
+        else " It is not rank 1: finalize takes the optimism of having picked the best of many "
+        "trials off their scores before comparing them with the library ensembles."
+    )
+    return (
+        f'<p class="box exported-note"><b>Exported:</b> {_e(r.get("candidate"))} '
+        f"({_e(r.get('family'))}, rank {_e(r.get('rank'))}) is the pipeline that "
+        f"<code>tutti export</code> and <code>job.best_pipeline()</code> return.{why}</p>"
+    )
+
+
 def _leaderboard(data: Mapping[str, Any], ctx: _Ctx) -> str:
-    """The ranked candidates, with significance against #1 when it was computed."""
+    """The ranked candidates, the exported one marked, with significance against #1."""
     rows = sorted(_rows(data, "leaderboard"), key=lambda r: _num(r.get("rank")) or math.inf)
     if not rows:
         return ""
-    sig = any(k in r for r in rows for k in ("mean_diff", "p_value", "distinguishable"))
-    head = ["#", "candidate", "family", "members", f"{_e(ctx.metric)} mean ± std", "fit s"]
-    head += ["predict ms / 1,000 rows", "size"]
-    head += ["difference vs #1", "p-value", "vs #1 at 5%"] if sig else []
-    table = _table(head, [_leaderboard_row(r, sig) for r in rows], {0, 4, 5, 6, 7, 8, 9})
+    sig = any(k in r for r in rows for k in ("diff_vs_rank1", "p_value", "distinguishable"))
+    head = ["rank", "candidate", "family", "members", "score", "score_std", "fit_seconds"]
+    head += ["predict_ms", "size_bytes"]
+    head += ["diff_vs_rank1", "p_value", "distinguishable"] if sig else []
+    table = _table(head, [_leaderboard_row(r, sig) for r in rows], {0, 4, 5, 6, 7, 8, 9, 10})
     note = f'<p class="small">{_TTEST_NOTE}</p>' if sig else ""
     if not sig and _not_run(data, "significance"):
         note = _not_run(data, "significance").replace(
             "Not run:", "Significance against #1 not run:"
         )
     return (
-        f"<p>Cross-validated {_e(ctx.metric)}, {_e(ctx.direction)}: mean ± standard deviation "
-        f"over folds. Predict time is per 1,000 rows.</p>{table}{note}"
+        f"<p>score: cross-validated {_e(ctx.metric)}, {_e(ctx.direction)}, the mean over folds; "
+        "score_std: its standard deviation over folds; fit_seconds: fitting time summed over "
+        "folds; predict_ms: milliseconds to predict 1,000 rows.</p>"
+        f"{_exported_note(rows)}{table}{note}"
     )
 
 
@@ -840,7 +878,7 @@ def _spec(data: Mapping[str, Any], ctx: _Ctx) -> str:
 
 
 def _versions(data: Mapping[str, Any], ctx: _Ctx) -> str:
-    """Library versions the job ran with."""
+    """Versions of the software the job ran with (tutti, scikit-learn, LightGBM, …)."""
     versions = data.get("versions")
     return _deflist(versions) if isinstance(versions, Mapping) and versions else ""
 
@@ -858,7 +896,7 @@ _SECTIONS = (
     ("leakage", "Leakage report", _leakage),
     ("data", "Data summary", _data_summary),
     ("spec", "Search spec", _spec),
-    ("versions", "Library versions", _versions),
+    ("versions", "Software versions", _versions),
 )
 
 
@@ -866,7 +904,7 @@ _SECTIONS = (
 
 
 def _context(data: Any) -> _Ctx:
-    """Check the two required keys and derive the metric's direction and the family colours."""
+    """Check the two required keys and derive the metric's direction."""
     if not isinstance(data, Mapping):
         raise TypeError(f"render_report: expected a mapping, got {type(data).__name__}.")
     problems = []
@@ -886,10 +924,9 @@ def _context(data: Any) -> _Ctx:
                 "unknown; add 'greater_is_better' (true or false) to the report data."
             )
         gib, known = score_sign(str(metric)) > 0, True
-    keys = ("leaderboard", "trials", "bias_variance")
-    fams = {str(r["family"]) for k in keys for r in _rows(data, k) if r.get("family") is not None}
-    colors = {f: _PALETTE[i % len(_PALETTE)] for i, f in enumerate(sorted(fams))}
-    return _Ctx(str(metric), greater_is_better=bool(gib), direction_known=known, colors=colors)
+    return _Ctx(
+        str(metric), greater_is_better=bool(gib), direction_known=known, colors=FAMILY_COLORS
+    )
 
 
 def render_report(data: Mapping[str, Any]) -> str:
