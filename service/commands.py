@@ -151,9 +151,9 @@ def cmd_predict(args: argparse.Namespace) -> int:
     from tuttiml.service.config import Settings
     from tuttiml.service.data import read_table
 
-    model, meta = read_export(Path(args.model), key=Settings.from_env().artifact_key)
     frame = read_table(args.data)
-    keep = _keep_columns(frame, args.keep or [])
+    keep = _keep_columns(frame, args.keep or [])  # before the (slow) model load
+    model, meta = read_export(Path(args.model), key=Settings.from_env().artifact_key)
     out = frame[keep].reset_index(drop=True).copy()
     out["prediction"] = model.predict(frame)
     if hasattr(model, "predict_proba") and meta.get("task") != "regression":

@@ -158,7 +158,7 @@ def add_spec_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument(
         "--spec",
         metavar="FILE.json",
-        help="read spec fields from a JSON object in FILE.json; flags override it",
+        help="read spec fields from a JSON object in FILE.json; flags override it (default: none)",
     )
     for field in USER_FIELDS:
         kind, optional = _inner(SearchSpec.model_fields[field].annotation)
@@ -185,7 +185,7 @@ def add_spec_options(parser: argparse.ArgumentParser) -> None:
         action="append",
         metavar="FIELD=VALUE",
         help="set a spec field by name (VALUE as JSON, or plain text); repeatable; every field "
-        "also has its own flag above",
+        "also has its own flag above (default: none)",
     )
 
 
