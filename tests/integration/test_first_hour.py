@@ -1,4 +1,4 @@
-"""A new user's first hour at the terminal, driven in a real terminal (tmux) and read off the screen.
+"""A new user's first hour, driven in a real terminal (tmux) and read off the screen.
 
 The test types into a shell inside tmux (``send-keys``) and reads what a person would see
 (``capture-pane``): help, a submit with a typo, a submit, the progress line through
