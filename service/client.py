@@ -448,8 +448,19 @@ class Job:
 
     # ------------------------------------------------------------------ results
     def trials(self) -> pd.DataFrame:
-        """Every finished trial (complete, pruned, failed) with its parameters."""
-        return pd.DataFrame(self.store.trial_rows(self.id))
+        """Every finished trial (complete, pruned, failed) with its parameters.
+
+        ``score`` and ``fold_scores`` are in the metric's natural sign, as on the leaderboard.
+        """
+        rows = self.store.trial_rows(self.id)
+        metric = self.spec().metric
+        if metric is not None:
+            for r in rows:
+                if r.get("score") is not None:
+                    r["score"] = natural(metric, r["score"])
+                if r.get("fold_scores"):
+                    r["fold_scores"] = [natural(metric, f) for f in r["fold_scores"]]
+        return pd.DataFrame(rows)
 
     def leaderboard(self) -> pd.DataFrame:
         """Complete candidates best first: trials and library ensembles, natural metric sign.

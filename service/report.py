@@ -438,7 +438,7 @@ def _plot_pareto(pts: list[Mapping[str, Any]], ctx: _Ctx) -> str:
     log = min(lat) > 0 and max(lat) / min(lat) > 20
     xr = (min(lat) / 1.5, max(lat) * 1.5) if log else _padded(lat)
     xs, ys = _scales(xr, _padded([float(p["score"]) for p in pts], 0.1), xlog=log)
-    xlabel = "predict time, ms per 1,000 rows" + (" (log scale)" if log else "")
+    xlabel = "predict_ms: ms to predict 1,000 rows" + (" (log scale)" if log else "")
     body = _axes(xs, ys, xlabel=xlabel, ylabel=ctx.metric)
     front = sorted((p for p in pts if p.get("on_front")), key=lambda p: float(p["predict_ms"]))
     path = [f"H{xs(float(p['predict_ms'])):.1f} V{ys(float(p['score'])):.1f}" for p in front]
@@ -699,7 +699,8 @@ def _exported_note(rows: Sequence[Mapping[str, Any]]) -> str:
         ""
         if _num(r.get("rank")) == 1
         else " It is not rank 1: finalize takes the optimism of having picked the best of many "
-        "trials off their scores before comparing them with the library ensembles."
+        "trials off their scores before comparing them with the library ensembles, and passes "
+        "over ensembles whose refit would not fit in the time left."
     )
     return (
         f'<p class="box exported-note"><b>Exported:</b> {_e(r.get("candidate"))} '

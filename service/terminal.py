@@ -144,8 +144,8 @@ def print_board(board: Any, limit: int | None = None) -> None:
         r = exported.iloc[0]
         print(
             f"exported: {r['candidate']} ({r['family']}, rank {r['rank']}) is the pipeline "
-            "`tutti export` writes; finalize takes the selection optimism of the best trial "
-            "off its score, so it need not be rank 1."
+            "`tutti export` writes. It need not be rank 1: finalize discounts the optimism of "
+            "picking the best of many trials and passes over ensembles it cannot refit in time."
         )
     if has_sig:
         print(
