@@ -19,12 +19,11 @@ from redis.exceptions import ConnectionError as RedisConnectionError
 from redis.exceptions import TimeoutError as RedisTimeoutError
 from tuttiml.service import commands as c
 from tuttiml.service.errors import EnsembleSearchError
-from tuttiml.service.terminal import BAR_MIN_BYTES, print_board, upload_bar
+from tuttiml.service.terminal import BAR_MIN_BYTES, upload_bar
 from tuttiml.service.version import __version__
 
-# names other modules and tests import from here
+# a name tests import from here
 _upload_bar = upload_bar
-_print_board = print_board
 __all__ = ["BAR_MIN_BYTES", "build_parser", "main"]
 
 EPILOG = (

@@ -138,7 +138,7 @@ def print_board(board: Any, limit: int | None = None) -> None:
     header = [*BOARD_HEADER, "p_value"] if has_sig else list(BOARD_HEADER)
     print_table(rows, header)
     if limit and len(board) > limit:
-        print(f"({len(board) - limit} more below; --limit 0 shows all)")
+        print(f"({len(board) - limit} more below rank {limit}: `tutti leaderboard JOB` shows all)")
     exported = board[board["exported"].astype(bool)] if "exported" in board.columns else board[:0]
     if len(exported):
         r = exported.iloc[0]

@@ -214,14 +214,21 @@ def add_worker_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--processes",
         "-p",
+        metavar="N",
         type=int,
         default=None,
         help="worker processes on this machine (default: cores // threads)",
     )
     p.add_argument(
-        "--cores", type=int, default=None, help="cores this machine may use (default: all)"
+        "--cores",
+        metavar="N",
+        type=int,
+        default=None,
+        help="cores this machine may use (default: all)",
     )
-    p.add_argument("--threads", type=int, default=1, help="threads per model fit (default: 1)")
+    p.add_argument(
+        "--threads", metavar="N", type=int, default=1, help="threads per model fit (default: 1)"
+    )
     p.add_argument(
         "--exit-when-empty",
         dest="exit_when_empty",
@@ -238,6 +245,7 @@ def add_worker_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument(
         "--redis-url",
+        metavar="URL",
         default=None,
         help="Redis URL shared by clients and workers (default: $TUTTI_REDIS_URL, else the "
         "embedded server under $TUTTI_HOME)",
