@@ -13,6 +13,7 @@ section and the exported candidate's tag are checked in the rendered page.
 
 from __future__ import annotations
 
+import json
 import os
 import re
 import secrets
@@ -210,6 +211,21 @@ def test_first_hour_at_the_terminal(
     assert len(marked) == 1, out
     chosen = marked[0].split()[1]
     assert f"exported: {chosen} (" in out
+
+    # the same names in --json and in the Python API (README: One vocabulary, JSON output)
+    term.run(f"tutti leaderboard {job} --json > board.json; tutti status {job} --json > st.json")
+    from tuttiml.service.client import LEADERBOARD_COLUMNS, STATUS_KEYS, Client
+
+    api = Client(url=redis_url, prefix=prefix).job(job)
+    shown = json.loads((tmp_path / "board.json").read_text())
+    board = api.leaderboard()
+    assert list(board.columns)[: len(LEADERBOARD_COLUMNS)] == list(LEADERBOARD_COLUMNS)
+    assert [list(r) for r in shown["rows"]] == [list(board.columns)] * len(board)
+    assert [r["score"] for r in shown["rows"]] == pytest.approx(list(board["score"]))
+    assert shown["metric"] == "roc_auc" and shown["greater_is_better"] is True
+    status = json.loads((tmp_path / "st.json").read_text())
+    assert [list(st) for st in status] == [list(STATUS_KEYS)]
+    assert status[0]["max_trials"] == api.status()["max_trials"] == 3
 
     # 6. export, then predict to Parquet keeping the id column
     out = term.run(f"tutti export {job} -o model.skops")
