@@ -152,6 +152,12 @@ def _add_wait(sub: Any) -> None:
         default=None,
         help="stop following after this many seconds; the job goes on (default: no limit)",
     )
+    p.add_argument(
+        "--explanations",
+        action="store_true",
+        help="also wait for the explanations that run after the model is committed "
+        "(default: return once the model is ready)",
+    )
 
 
 def _add_leaderboard(sub: Any) -> None:

@@ -41,13 +41,13 @@ def _client(args: argparse.Namespace) -> Any:
         ) from None
 
 
-def _follow(job: Any, timeout: float | None = None) -> int:
+def _follow(job: Any, timeout: float | None = None, *, explanations: bool = False) -> int:
     """Draw the job's progress until it is final, then print its board; 1 unless finished.
 
     A failed or cancelled job exits 1 so scripts see it (its board, if any, still prints).
     """
     try:
-        st = job.wait(progress=True, timeout=timeout)
+        st = job.wait(progress=True, timeout=timeout, explanations=explanations)
     except TimeoutError as exc:
         print(f"tutti wait: {exc}; it goes on (tutti wait {job.id} to follow it again)")
         return 1
@@ -79,7 +79,8 @@ def cmd_submit(args: argparse.Namespace) -> int:
 
 
 def cmd_wait(args: argparse.Namespace) -> int:
-    return _follow(_client(args).job(args.job), timeout=args.timeout)
+    job = _client(args).job(args.job)
+    return _follow(job, timeout=args.timeout, explanations=args.explanations)
 
 
 def cmd_status(args: argparse.Namespace) -> int:

@@ -203,10 +203,17 @@ def test_first_hour_at_the_terminal(
     # 5. leaderboard: vocabulary columns and the exported candidate marked
     out = term.run(f"tutti leaderboard {job}")
     header = next(ln for ln in out.splitlines() if ln.startswith("rank"))
-    assert header.split() == [
-        "rank", "candidate", "family", "members", "score", "score_std",
-        "fit_seconds", "predict_ms", "exported", "p_value",
-    ]  # fmt: skip
+    assert header.split()[:9] == [
+        "rank",
+        "candidate",
+        "family",
+        "members",
+        "score",
+        "score_std",
+        "fit_seconds",
+        "predict_ms",
+        "exported",
+    ]  # fmt: skip  (p_value follows once the explanations are done)
     marked = [ln for ln in out.splitlines() if re.search(r"\s+yes\s+", ln)]
     assert len(marked) == 1, out
     chosen = marked[0].split()[1]
@@ -238,7 +245,12 @@ def test_first_hour_at_the_terminal(
     out = term.run("tutti predict model.skops new.csv --keep station", expect_rc=2)
     assert "--keep: 'station' not in the table" in out
 
-    # 7. the report and the logs of finalize
+    # 7. the explanations that follow the commit, then the report and the logs of finalize
+    out = term.run(f"tutti wait {job} --explanations", timeout=240)
+    assert "explanations done" in out, out
+    out = term.run(f"tutti status {job}")
+    assert re.search(rf"{job}\s+finished\s+3\s+3\s+\d+\s+roc_auc\s+[\d.]+\s+\d+\s+—\s+done", out)
+    assert re.search(r"(?m)^  significance: (done|not run: .+)$", out), out
     out = term.run(f"tutti report {job} -o report.html")
     assert "wrote report.html" in out
     RESULT.update(report=tmp_path / "report.html", chosen=Path(chosen))
