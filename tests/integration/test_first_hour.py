@@ -214,7 +214,7 @@ def test_first_hour_at_the_terminal(
         "predict_ms",
         "exported",
     ]  # fmt: skip  (p_value follows once the explanations are done)
-    marked = [ln for ln in out.splitlines() if re.search(r"\s+yes\s+", ln)]
+    marked = [ln for ln in out.splitlines() if re.search(r"\s+yes(\s|$)", ln)]
     assert len(marked) == 1, out
     chosen = marked[0].split()[1]
     assert f"exported: {chosen} (" in out
@@ -254,8 +254,9 @@ def test_first_hour_at_the_terminal(
     out = term.run(f"tutti report {job} -o report.html")
     assert "wrote report.html" in out
     RESULT.update(report=tmp_path / "report.html", chosen=Path(chosen))
-    out = term.run(f"tutti logs {job} --follow --tail 4")
-    assert "finalize: committed: best" in out and "no more lines will come" in out
+    out = term.run(f"tutti logs {job} --follow --tail 60")
+    assert "finalize: committed: best" in out and "explain: committed" in out
+    assert "no more lines will come" in out
 
     # 8. cancel a second job, then delete: declined, confirmed, and with --yes
     out = term.run("tutti submit cells.csv --target benign --max-trials 40 --name second")
