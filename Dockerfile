@@ -7,4 +7,4 @@ COPY service ./service
 COPY workers ./workers
 COPY tuttiml ./tuttiml
 RUN pip install --no-cache-dir .
-CMD ["tutti", "worker"]
+CMD ["tutti", "start-workers"]

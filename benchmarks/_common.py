@@ -82,7 +82,7 @@ class Workers:
         url: Redis URL.
         prefix: key prefix.
         processes: worker processes.
-        burst: exit once no job is left (``--burst``).
+        burst: exit once no job is left (``--exit-when-empty``).
         log: file for the workers' output (``None`` discards it).
     """
 
@@ -107,7 +107,7 @@ class Workers:
             prefix,
         ]
         if burst:
-            cmd.append("--burst")
+            cmd.append("--exit-when-empty")
         env = {**os.environ, "PYTHONPATH": str(ROOT)}
         out = open(log, "ab") if log else subprocess.DEVNULL  # noqa: SIM115
         self.started = time.time()

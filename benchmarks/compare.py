@@ -304,7 +304,7 @@ def tutti_model(
             "trials": st["trials_done"],
             "failed": st["failed"],
             "best": _exported_family(board),
-            "elapsed": float(st["elapsed"] or 0.0),
+            "elapsed": float(st["elapsed_seconds"] or 0.0),
             "stop": st.get("stop_reason") or "?",
         }
         return model, info

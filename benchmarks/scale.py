@@ -116,7 +116,7 @@ class Launcher(_common.Workers):
         if name:
             cmd += ["--name", name]
         if burst:
-            cmd.append("--burst")
+            cmd.append("--exit-when-empty")
         full_env = {**os.environ, "PYTHONPATH": str(_common.ROOT), **(env or {})}
         out = open(log, "ab") if log else subprocess.DEVNULL  # noqa: SIM115
         self.started = time.time()

@@ -1,509 +1,547 @@
-"""The ``tutti`` command: argument parsing only; the work is done by the client."""
+"""The ``tutti`` command: argument parsing only; ``service.commands`` does the work.
+
+One small function per command adds its sub-parser. The global options (``--redis-url``,
+``--prefix``) are accepted before or after the command. Old command and option names keep
+working as hidden aliases that print a deprecation warning.
+"""
 
 from __future__ import annotations
 
 import argparse
 import contextlib
-import json
+import difflib
 import os
 import sys
-import time
 from collections.abc import Callable
-from pathlib import Path
-from typing import Any, TextIO
+from typing import Any
 
 from redis.exceptions import ConnectionError as RedisConnectionError
 from redis.exceptions import TimeoutError as RedisTimeoutError
-from tuttiml.service.errors import EnsembleSearchError, InvalidSpecError
+from tuttiml.service import commands as c
+from tuttiml.service.errors import EnsembleSearchError
+from tuttiml.service.terminal import BAR_MIN_BYTES, upload_bar
+from tuttiml.service.version import __version__
 
-#: Tables whose Parquet bytes reach this size get an upload progress bar (one store chunk).
-BAR_MIN_BYTES = 64 * 1024 * 1024
-EPILOG = "Set TUTTI_REDIS_URL (or --redis-url) to share one Redis between machines."
+# a name tests import from here
+_upload_bar = upload_bar
+__all__ = ["BAR_MIN_BYTES", "build_parser", "main"]
+
+EPILOG = (
+    "Set TUTTI_REDIS_URL (or --redis-url) to share one Redis between machines.\n"
+    "Start here: tutti demo · tutti submit --help · README.md"
+)
+#: Old command names: name -> (new name, release that removes the old one).
+RENAMED = {"worker": "start-workers", "workers": "list-workers"}
+REMOVED_IN = "0.3"
+WORKER_COMMANDS = ("start-workers", "worker")
+
+_REDIS_HELP = (
+    "Redis URL shared by clients and workers (default: $TUTTI_REDIS_URL, else the embedded "
+    "server under $TUTTI_HOME)"
+)
+_PREFIX_HELP = "key prefix of the store (default: $TUTTI_PREFIX, else tutti)"
 
 
-def _client(args: argparse.Namespace) -> Any:
-    from tuttiml.service.client import Client
+class _Formatter(argparse.RawDescriptionHelpFormatter):
+    """Keeps the line breaks of descriptions and examples; wider option column."""
 
-    return Client(url=args.redis_url, prefix=args.prefix)
+    def __init__(self, prog: str) -> None:
+        super().__init__(prog, max_help_position=32, width=min(_columns(), 100))
 
 
-def _parse_value(text: str) -> Any:
+def _columns() -> int:
     try:
-        return json.loads(text)
-    except ValueError:
-        return text
+        return os.get_terminal_size().columns
+    except OSError:
+        return 100
 
 
-def cmd_submit(args: argparse.Namespace) -> int:
-    fields: dict[str, Any] = {"target": args.target}
-    for name in (
-        "task",
-        "metric",
-        "folds",
-        "max_trials",
-        "wall_seconds",
-        "trial_timeout",
-        "seed",
-        "parallelism",
-        "holdout",
-        "group_column",
-        "order_column",
-        "name",
-    ):
-        value = getattr(args, name)
-        if value is not None:
-            fields[name] = value
-    if args.families:
-        fields["families"] = [f.strip() for f in args.families.split(",") if f.strip()]
-    for item in args.set or []:
-        key, eq, value = item.partition("=")
-        if not eq:
-            raise InvalidSpecError(
-                f"--set {item!r}: use FIELD=VALUE, e.g. --set library_size=8",
-                field="set",
-                value=item,
-            )
-        fields[key.strip()] = _parse_value(value)
-    client = _client(args)
-    job = client.submit(args.data, **fields, upload_progress=_upload_bar(sys.stderr))
-    print(job.id)
-    if args.wait:
-        status = job.wait(progress=True)
-        board = job.leaderboard()
-        if len(board):
-            _print_board(board, limit=10)
-        if status["state"] != "finished":  # failed or cancelled: scripts must see it
-            reason = status.get("reason") or status.get("stop_reason") or "no reason recorded"
-            print(
-                f"tutti: job {job.id} ended {status['state']}: {reason}; "
-                f"see `tutti logs {job.id}`",
-                file=sys.stderr,
-            )
-            return 1
-    return 0
+def _global_options(parser: argparse.ArgumentParser, *, after: bool) -> None:
+    """``--redis-url`` and ``--prefix``; after the command they default to 'not given'."""
+    default = argparse.SUPPRESS if after else None
+    group = parser.add_argument_group("connection (before or after the command)")
+    group.add_argument("--redis-url", metavar="URL", default=default, help=_REDIS_HELP)
+    group.add_argument("--prefix", metavar="PREFIX", default=default, help=_PREFIX_HELP)
 
 
-def _upload_bar(out: TextIO, min_bytes: int = BAR_MIN_BYTES) -> Callable[[int, int], None]:
-    """A one-line upload progress bar on ``out`` for tables of at least ``min_bytes``.
-
-    Redraws in place on a terminal; elsewhere (logs, CI) it prints one line per quarter.
-    """
-    t0 = time.monotonic()
-    tty = out.isatty()
-    shown = [-1]
-
-    def show(done: int, total: int) -> None:
-        if total < min_bytes:
-            return
-        frac = done / total if total else 1.0
-        step = int(frac * 4)
-        if not tty and step == shown[0]:
-            return
-        shown[0] = step
-        bar = "#" * round(30 * frac)
-        line = (
-            f"upload [{bar:<30}] {done / 1e6:,.0f}/{total / 1e6:,.0f} MB "
-            f"{time.monotonic() - t0:.1f} s"
-        )
-        out.write(f"\r{line}" if tty else f"{line}\n")
-        if tty and done >= total:
-            out.write("\n")
-        out.flush()
-
-    return show
-
-
-def _fmt(value: Any, digits: int = 4) -> str:
-    if value is None or (isinstance(value, float) and value != value):
-        return "—"
-    if isinstance(value, float):
-        return f"{value:.{digits}f}"
-    return str(value)
-
-
-def _print_table(rows: list[list[str]], header: list[str]) -> None:
-    widths = [
-        max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(header)
-    ]
-    print("  ".join(h.ljust(w) for h, w in zip(header, widths, strict=True)))
-    print("  ".join("─" * w for w in widths))
-    for r in rows:
-        print("  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)))
-
-
-def cmd_status(args: argparse.Namespace) -> int:
-    from tuttiml.service.client import _fmt_seconds
-
-    client = _client(args)
-    jobs = [client.job(args.job)] if args.job else client.jobs()
-    rows = []
-    statuses = [job.status() for job in jobs]
-    for st in statuses:
-        rows.append(
-            [
-                st["job"],
-                st["state"],
-                f"{st['trials_done']}/{st['budget']}",
-                str(st["failed"]),
-                f"{st['metric']} {_fmt(st['best'])}",
-                _fmt_seconds(st["elapsed"]),
-                _fmt_seconds(st["eta"]) if st["eta"] is not None else "—",
-                _explained(st),
-                st.get("reason") or st.get("stop_reason") or "",
-            ]
-        )
-    if args.json:
-        print(json.dumps(statuses, indent=2, default=str))
-        return 0
-    if not rows:
-        print("no jobs yet: submit one with `tutti submit data.csv --target COLUMN`")
-        return 0
-    head = ["job", "state", "trials", "failed", "best", "elapsed", "left", "explanations", "note"]
-    _print_table(rows, head)
-    if len(statuses) == 1:  # one job: each explanation part and whether it ran
-        for part, status in statuses[0]["explain_parts"].items():
-            print(f"  {part}: {status}")
-    return 0
-
-
-def _explained(st: dict[str, Any]) -> str:
-    """``pending``, ``running``, ``done`` (with how many parts did not run) or ``failed``."""
-    state = st.get("explanations")
-    if not state:
-        return "—"
-    missing = sum(1 for v in st.get("explain_parts", {}).values() if v.startswith("not run"))
-    return f"{state} ({missing} not run)" if missing else str(state)
-
-
-def _print_board(board: Any, limit: int | None = None) -> None:
-    metric = board.attrs.get("metric", "score")
-    print(f"metric: {metric} ({board.attrs.get('direction', '')})")
-    has_sig = "p_value" in board.columns
-    rows = []
-    for _, r in board.head(limit).iterrows() if limit else board.iterrows():
-        row = [
-            str(r["rank"]),
-            str(r["candidate"]),
-            str(r["family"]),
-            str(r["members"])[:40],
-            _fmt(r[metric]),
-            _fmt(r[f"{metric}_std"]),
-            _fmt(r["fit_seconds"], 2),
-            _fmt(r["predict_ms_per_1000"], 1),
-        ]
-        if has_sig:
-            p = r.get("p_value")
-            flag = "" if p is None or p != p else ("" if r.get("distinguishable") else " ≈#1")
-            row.append(_fmt(p, 3) + flag)
-        rows.append(row)
-    header = ["rank", "candidate", "family", "members", metric, "± std", "fit s", "predict ms/1k"]
-    if has_sig:
-        header.append("p vs #1")
-    _print_table(rows, header)
-    if has_sig:
-        print(
-            "p vs #1: corrected repeated k-fold t-test against rank 1 (≈#1: not "
-            "distinguishable at 5%); not corrected for having picked the best of many."
-        )
-
-
-def cmd_leaderboard(args: argparse.Namespace) -> int:
-    board = _client(args).job(args.job).leaderboard()
-    if args.json:
-        out = {
-            "metric": board.attrs.get("metric"),
-            "direction": board.attrs.get("direction"),
-            "rows": json.loads(board.to_json(orient="records")),
-        }
-        print(json.dumps(out, indent=2))
-    else:
-        _print_board(board, limit=args.limit)
-    return 0
-
-
-def cmd_report(args: argparse.Namespace) -> int:
-    path = _client(args).job(args.job).report(args.output)
-    print(f"wrote {path}")
-    return 0
-
-
-def cmd_export(args: argparse.Namespace) -> int:
-    path = _client(args).job(args.job).export(args.output, max_predict_ms=args.max_predict_ms)
-    print(f"wrote {path} (+ {path.name}.json)")
-    return 0
-
-
-def cmd_predict(args: argparse.Namespace) -> int:
-    import numpy as np
-    import pandas as pd
-    from tuttiml.service.artifacts import read_export
-    from tuttiml.service.config import Settings
-    from tuttiml.service.data import read_table
-
-    model, meta = read_export(Path(args.model), key=Settings.from_env().artifact_key)
-    frame = read_table(args.data)
-    pred = model.predict(frame)
-    out = pd.DataFrame({"prediction": pred})
-    if hasattr(model, "predict_proba") and meta.get("task") != "regression":
-        proba = np.asarray(model.predict_proba(frame))
-        for j, c in enumerate(model.classes_):
-            out[f"proba_{c}"] = proba[:, j]
-    if args.output:
-        out.to_csv(args.output, index=False)
-        print(f"wrote {len(out)} predictions to {args.output}")
-    else:
-        out.to_csv(sys.stdout, index=False)
-    return 0
-
-
-def cmd_cancel(args: argparse.Namespace) -> int:
-    changed = _client(args).job(args.job).cancel()
-    print(f"{args.job}: {'cancelled' if changed else 'already cancelled'}")
-    return 0
-
-
-def cmd_logs(args: argparse.Namespace) -> int:
-    for line in _client(args).job(args.job).logs()[-args.tail :]:
-        print(line)
-    return 0
-
-
-def cmd_delete(args: argparse.Namespace) -> int:
-    n = _client(args).job(args.job).delete()
-    print(f"deleted {args.job} ({n} keys)")
-    return 0
-
-
-def cmd_extend(args: argparse.Namespace) -> int:
-    job = (
-        _client(args)
-        .job(args.job)
-        .extend(more_trials=args.more_trials, wall_seconds=args.wall_seconds)
+def _command(
+    sub: Any, name: str, text: str, example: str, func: Callable[..., int], **kw: Any
+) -> argparse.ArgumentParser:
+    """A sub-parser with a one-line help, its description, an example and the global options."""
+    if kw.pop("listed", True):
+        kw["help"] = text  # a command without help is left out of `tutti --help`
+    p: argparse.ArgumentParser = sub.add_parser(
+        name,
+        description=kw.pop("description", text[0].upper() + text[1:] + "."),
+        epilog=f"example:\n  {example}",
+        formatter_class=_Formatter,
+        allow_abbrev=False,
+        **kw,
     )
-    print(f"{job.id}: queued again ({job.status()['budget']} trials in all)")
-    return 0
+    p.set_defaults(func=func)
+    _global_options(p, after=True)
+    return p
 
 
-def cmd_purge(args: argparse.Namespace) -> int:
-    gone = _client(args).purge(_duration(args.older_than))
-    print(f"deleted {len(gone)} job(s)" + (": " + ", ".join(gone) if gone else ""))
-    return 0
+def _job(p: argparse.ArgumentParser) -> None:
+    p.add_argument("job", metavar="JOB", help="job id, as printed by submit and listed by status")
 
 
-def _duration(text: str) -> float:
-    units = {"s": 1, "m": 60, "h": 3600, "d": 86400, "w": 604800}
-    try:
-        if text[-1] in units:
-            return float(text[:-1]) * units[text[-1]]
-        return float(text)
-    except (ValueError, IndexError):
-        raise SystemExit(
-            f"--older-than {text!r}: use a number with s, m, h, d or w, e.g. 30d"
-        ) from None
-
-
-def cmd_workers(args: argparse.Namespace) -> int:
-    import time
-
-    rows = []
-    for w in _client(args).workers():
-        doing = (
-            f"job {w['job']} trial {w.get('trial')} ({w.get('family')})"
-            if w.get("job")
-            else "idle"
-        )
-        rows.append(
-            [
-                str(w["name"]),
-                str(w.get("host", "")),
-                str(w.get("pid", "")),
-                doing,
-                f"{time.time() - float(w.get('started_at', time.time())):.0f} s",
-            ]
-        )
-    if not rows:
-        print("no live workers: start some with `tutti worker --processes N`")
-        return 0
-    _print_table(rows, ["worker", "host", "pid", "doing", "up"])
-    return 0
-
-
-def cmd_doctor(args: argparse.Namespace) -> int:
-    client = _client(args)
-    findings = client.doctor()
-    for f in findings:
-        print(f"[{f.level:7}] {f.check}: {f.detail}")
-    return 1 if any(f.level == "problem" for f in findings) else 0
-
-
-def cmd_server(args: argparse.Namespace) -> int:
-    from tuttiml.service.config import Settings
-    from tuttiml.service.server import EmbeddedServer
-
-    server = EmbeddedServer(Settings.from_env().home)
-    if args.action == "status":
-        st = server.status()
-        print(json.dumps(st, indent=2))
-        return 0
-    if args.action == "start":
-        print(server.ensure_running())
-        return 0
-    stopped = server.stop()
-    print("stopped" if stopped else "not running")
-    return 0
-
-
-def cmd_worker(args: argparse.Namespace, rest: list[str]) -> int:
-    argv = [sys.executable, "-m", "tuttiml.workers", *rest]
-    os.execv(sys.executable, argv)
-    return 0  # pragma: no cover
-
-
-def cmd_demo(args: argparse.Namespace) -> int:
-    from tuttiml.service.demo import run_demo
-
-    return run_demo(
-        trials=args.trials,
-        seconds=args.seconds,
-        processes=args.processes,
-        redis_url=args.redis_url,
-        prefix=args.prefix,
-        show_board=_print_board,
+def _json(p: argparse.ArgumentParser, what: str) -> None:
+    p.add_argument(
+        "--json", action="store_true", help=f"print {what} as JSON (README: JSON output)"
     )
+
+
+def _add_submit(sub: Any) -> None:
+    from tuttiml.service.spec_options import add_spec_options
+
+    p = _command(
+        sub,
+        "submit",
+        "submit a search job for a CSV or Parquet table",
+        "tutti submit stations.csv --target failed_within_30d --max-trials 60 --wait",
+        c.cmd_submit,
+        description=(
+            "Validate the spec and the table, store them and queue the search; prints the "
+            "job id.\nNothing is stored when a field or the table is refused. Workers run the "
+            "job: tutti start-workers.\nMetrics per task: binary roc_auc (default), log_loss, "
+            "accuracy, balanced_accuracy, f1;\nmulticlass log_loss (default), accuracy, "
+            "balanced_accuracy, f1_macro; regression rmse (default), mae, r2."
+        ),
+    )
+    p.add_argument("data", metavar="DATA", help="the table: a .csv or .parquet file")
+    p.add_argument(
+        "--wait",
+        action="store_true",
+        help="follow the job's progress until it is final, then print its leaderboard",
+    )
+    add_spec_options(p)
+
+
+def _add_status(sub: Any) -> None:
+    p = _command(
+        sub,
+        "status",
+        "list jobs, or show one",
+        "tutti status 20261202-153000-a1b2c3 --json",
+        c.cmd_status,
+    )
+    p.add_argument("job", metavar="JOB", nargs="?", help="one job id (default: every job)")
+    _json(p, "a list of status objects")
+
+
+def _add_wait(sub: Any) -> None:
+    p = _command(
+        sub,
+        "wait",
+        "follow a job's progress (search, then finalize) until it is final",
+        "tutti wait 20261202-153000-a1b2c3",
+        c.cmd_wait,
+        description=(
+            "Draw a job's progress line until it is finished, failed or cancelled, then print "
+            "its leaderboard.\nWhile finalizing, the line says what finalize is doing. Exit "
+            "code 0 when the job finished, 1 otherwise."
+        ),
+    )
+    _job(p)
+    p.add_argument(
+        "--timeout",
+        metavar="SECONDS",
+        type=float,
+        default=None,
+        help="stop following after this many seconds; the job goes on (default: no limit)",
+    )
+    p.add_argument(
+        "--explanations",
+        action="store_true",
+        help="also wait for the explanations that run after the model is committed "
+        "(default: return once the model is ready)",
+    )
+
+
+def _add_leaderboard(sub: Any) -> None:
+    p = _command(
+        sub,
+        "leaderboard",
+        "a job's candidates, best first, with the exported one marked",
+        "tutti leaderboard 20261202-153000-a1b2c3 --limit 10",
+        c.cmd_leaderboard,
+    )
+    _job(p)
+    p.add_argument(
+        "--limit", metavar="N", type=int, default=None, help="show the best N rows (default: all)"
+    )
+    _json(p, "the metric and every row")
+
+
+def _add_export(sub: Any) -> None:
+    p = _command(
+        sub,
+        "export",
+        "write a job's fitted pipeline to a skops file",
+        "tutti export 20261202-153000-a1b2c3 -o model.skops",
+        c.cmd_export,
+    )
+    _job(p)
+    p.add_argument(
+        "-o", "--output", metavar="FILE", required=True, help="skops file to write (required)"
+    )
+    p.add_argument(
+        "--max-predict-ms",
+        metavar="MS",
+        type=float,
+        default=None,
+        help="best refitted pipeline whose predict_ms (per 1,000 rows) is within MS "
+        "(default: the exported candidate)",
+    )
+
+
+def _add_report(sub: Any) -> None:
+    p = _command(
+        sub,
+        "report",
+        "write a job's self-contained HTML report",
+        "tutti report 20261202-153000-a1b2c3 -o report.html",
+        c.cmd_report,
+    )
+    _job(p)
+    p.add_argument(
+        "-o", "--output", metavar="FILE", required=True, help="HTML file to write (required)"
+    )
+
+
+def _add_predict(sub: Any) -> None:
+    p = _command(
+        sub,
+        "predict",
+        "predict a CSV or Parquet table with an exported pipeline",
+        "tutti predict model.skops new.csv --keep station_id -o predictions.parquet",
+        c.cmd_predict,
+        description=(
+            "Predict every row of a table with an exported pipeline. Output columns: the kept "
+            "columns,\nprediction, and for classifiers proba_<class> per class."
+        ),
+    )
+    p.add_argument("model", metavar="MODEL", help="skops file written by tutti export")
+    p.add_argument("data", metavar="DATA", help="the rows to predict: a .csv or .parquet file")
+    p.add_argument(
+        "-o",
+        "--output",
+        metavar="FILE",
+        default=None,
+        help="file to write: Parquet when it ends in .parquet, else CSV (default: CSV on stdout)",
+    )
+    p.add_argument(
+        "--keep",
+        metavar="COLUMN",
+        action="append",
+        default=None,
+        help="copy this input column into the output (e.g. an id to join on); repeatable or "
+        "comma-separated (default: none)",
+    )
+
+
+def _add_cancel(sub: Any) -> None:
+    p = _command(
+        sub,
+        "cancel",
+        "stop a job; finalize still fits the best candidate so far",
+        "tutti cancel 20261202-153000-a1b2c3",
+        c.cmd_cancel,
+    )
+    _job(p)
+
+
+def _add_delete(sub: Any) -> None:
+    p = _command(
+        sub,
+        "delete",
+        "remove a job and all its data (asks first)",
+        "tutti delete 20261202-153000-a1b2c3 --yes",
+        c.cmd_delete,
+    )
+    _job(p)
+    p.add_argument(
+        "-y", "--yes", action="store_true", help="delete without asking (needed off a terminal)"
+    )
+
+
+def _add_logs(sub: Any) -> None:
+    p = _command(
+        sub,
+        "logs",
+        "a job's worker log lines and failure tracebacks",
+        "tutti logs 20261202-153000-a1b2c3 --follow",
+        c.cmd_logs,
+    )
+    _job(p)
+    p.add_argument(
+        "--tail", metavar="N", type=int, default=200, help="print the last N lines (default: 200)"
+    )
+    p.add_argument(
+        "-f",
+        "--follow",
+        action="store_true",
+        help="keep printing new lines until the job is final",
+    )
+    p.add_argument("--poll", type=float, default=1.0, help=argparse.SUPPRESS)
+
+
+def _add_extend(sub: Any) -> None:
+    p = _command(
+        sub,
+        "extend",
+        "continue a finished or cancelled job on the same study, then finalize again",
+        "tutti extend 20261202-153000-a1b2c3 --more-trials 40",
+        c.cmd_extend,
+    )
+    _job(p)
+    p.add_argument(
+        "--more-trials",
+        metavar="N",
+        type=int,
+        default=None,
+        help="trials to add to max_trials (default: the job's max_trials again)",
+    )
+    p.add_argument(
+        "--wall-seconds",
+        metavar="SECONDS",
+        type=float,
+        default=None,
+        help="wall-clock budget of the continuation (default: the job's wall_seconds)",
+    )
+
+
+def _add_purge(sub: Any) -> None:
+    p = _command(
+        sub,
+        "purge",
+        "delete finished, failed and cancelled jobs older than a duration",
+        "tutti purge --older-than 30d --dry-run",
+        c.cmd_purge,
+    )
+    p.add_argument(
+        "--older-than",
+        metavar="AGE",
+        type=c.duration,
+        required=True,
+        help="age since submission: a number with s, m, h, d or w, e.g. 30d (required)",
+    )
+    p.add_argument(
+        "--dry-run", action="store_true", help="list the jobs that would go; delete nothing"
+    )
+
+
+def _add_list_workers(sub: Any, name: str = "list-workers", listed: bool = True) -> None:
+    p = _command(
+        sub,
+        name,
+        "live worker processes and what each is doing",
+        "tutti list-workers",
+        c.cmd_list_workers,
+        listed=listed,
+    )
+    _json(p, "a list of worker objects")
+    if not listed:
+        p.set_defaults(renamed_from=name)
+
+
+def _add_doctor(sub: Any) -> None:
+    p = _command(
+        sub,
+        "doctor",
+        "check the Redis server's persistence, eviction policy and password",
+        "tutti doctor",
+        c.cmd_doctor,
+    )
+    _json(p, "the findings")
+
+
+def _add_server(sub: Any) -> None:
+    p = _command(
+        sub,
+        "server",
+        "the embedded Redis server: status, start or stop",
+        "tutti server stop",
+        c.cmd_server,
+        description=(
+            "The embedded Redis server tutti starts when no URL is set (data under "
+            "$TUTTI_HOME).\nStopping it keeps every job: the next command starts it again."
+        ),
+    )
+    p.add_argument(
+        "action",
+        metavar="ACTION",
+        choices=["status", "start", "stop"],
+        help="one of status, start, stop",
+    )
+    _json(p, "the server's state")
+
+
+def _add_start_workers(sub: Any) -> None:
+    for name, listed in (("start-workers", True), ("worker", False)):
+        _command(
+            sub,
+            name,
+            "run worker processes on this machine (tutti start-workers --help)",
+            "tutti start-workers --processes 2",
+            _handed_over,
+            listed=listed,
+            add_help=False,
+        )
+
+
+def _handed_over(args: argparse.Namespace) -> int:
+    """Never called: ``main`` hands ``start-workers`` to the worker launcher before parsing."""
+    raise AssertionError("start-workers is run by the worker launcher")
+
+
+def _add_demo(sub: Any) -> None:
+    p = _command(
+        sub,
+        "demo",
+        "run a search on generated data with local workers, end to end",
+        "tutti demo --max-trials 20 --wall-seconds 60",
+        c.cmd_demo,
+    )
+    p.add_argument(
+        "--max-trials", metavar="N", type=int, default=40, help="most trials (default: 40)"
+    )
+    p.add_argument(
+        "--wall-seconds",
+        metavar="SECONDS",
+        type=float,
+        default=120.0,
+        help="wall-clock budget (default: 120)",
+    )
+    p.add_argument(
+        "--processes", metavar="N", type=int, default=2, help="worker processes (default: 2)"
+    )
+    for old, new, kind in (("--trials", "max_trials", int), ("--seconds", "wall_seconds", float)):
+        p.add_argument(
+            old,
+            dest=new,
+            type=_deprecated(old, "--" + new.replace("_", "-"), kind),
+            help=argparse.SUPPRESS,
+        )
+
+
+def _deprecated(old: str, new: str, kind: type) -> Callable[[str], Any]:
+    def parse(text: str) -> Any:
+        _warn_renamed(old, new)
+        return kind(text)
+
+    return parse
+
+
+def _warn_renamed(old: str, new: str) -> None:
+    print(
+        f"tutti: warning: {old} is deprecated and will be removed in tutti {REMOVED_IN}; "
+        f"use {new}",
+        file=sys.stderr,
+    )
+
+
+_ADDERS = (
+    _add_submit,
+    _add_status,
+    _add_wait,
+    _add_leaderboard,
+    _add_export,
+    _add_predict,
+    _add_report,
+    _add_logs,
+    _add_cancel,
+    _add_extend,
+    _add_delete,
+    _add_purge,
+    _add_start_workers,
+    _add_list_workers,
+    _add_doctor,
+    _add_server,
+    _add_demo,
+)
 
 
 def build_parser() -> argparse.ArgumentParser:
+    """The ``tutti`` parser: global options, then one sub-parser per command."""
     p = argparse.ArgumentParser(
         prog="tutti",
         description="Ensemble search on CPU workers through a Redis queue.",
         epilog=EPILOG,
+        formatter_class=_Formatter,
+        allow_abbrev=False,
     )
-    p.add_argument(
-        "--redis-url",
-        default=None,
-        help="Redis URL (default TUTTI_REDIS_URL or the embedded server)",
-    )
-    p.add_argument("--prefix", default=None, help="key prefix (default tutti)")
-    sub = p.add_subparsers(dest="command", required=True)
-
-    s = sub.add_parser("submit", help="submit a search job from a CSV or Parquet file")
-    s.add_argument("data")
-    s.add_argument("--target", required=True)
-    s.add_argument("--task", choices=["auto", "binary", "multiclass", "regression"])
-    s.add_argument("--metric")
-    s.add_argument("--folds", type=int)
-    s.add_argument("--max-trials", dest="max_trials", type=int)
-    s.add_argument("--wall-seconds", dest="wall_seconds", type=float)
-    s.add_argument("--trial-timeout", dest="trial_timeout", type=float)
-    s.add_argument("--families", help="comma-separated subset, e.g. boosting,bagging")
-    s.add_argument("--seed", type=int)
-    s.add_argument("--parallelism", type=int, help="search shards (≈ worker processes to use)")
-    s.add_argument("--holdout", type=float)
-    s.add_argument("--group-column", dest="group_column")
-    s.add_argument("--order-column", dest="order_column")
-    s.add_argument("--name")
-    s.add_argument(
-        "--set", action="append", metavar="FIELD=VALUE", help="any other spec field (JSON value)"
-    )
-    s.add_argument("--wait", action="store_true", help="follow progress, then print the board")
-    s.set_defaults(func=cmd_submit)
-
-    s = sub.add_parser("status", help="list jobs, or show one")
-    s.add_argument("job", nargs="?")
-    s.add_argument("--json", action="store_true")
-    s.set_defaults(func=cmd_status)
-
-    s = sub.add_parser("leaderboard", help="a job's candidates, best first")
-    s.add_argument("job")
-    s.add_argument("--json", action="store_true")
-    s.add_argument("--limit", type=int, default=None)
-    s.set_defaults(func=cmd_leaderboard)
-
-    s = sub.add_parser("export", help="write a job's best pipeline to a skops file")
-    s.add_argument("job")
-    s.add_argument("-o", "--output", required=True)
-    s.add_argument(
-        "--max-predict-ms",
-        dest="max_predict_ms",
-        type=float,
-        default=None,
-        help="best pipeline predicting 1,000 rows within this many ms",
-    )
-    s.set_defaults(func=cmd_export)
-
-    s = sub.add_parser("report", help="write a job's self-contained HTML report")
-    s.add_argument("job")
-    s.add_argument("-o", "--output", required=True)
-    s.set_defaults(func=cmd_report)
-
-    s = sub.add_parser("predict", help="predict a CSV/Parquet file with an exported pipeline")
-    s.add_argument("model")
-    s.add_argument("data")
-    s.add_argument("-o", "--output")
-    s.set_defaults(func=cmd_predict)
-
-    for name, func, text in (
-        ("cancel", cmd_cancel, "stop a job (best-so-far is kept)"),
-        ("delete", cmd_delete, "remove a job and all its data"),
-    ):
-        s = sub.add_parser(name, help=text)
-        s.add_argument("job")
-        s.set_defaults(func=func)
-
-    s = sub.add_parser("logs", help="a job's worker log lines and failure tracebacks")
-    s.add_argument("job")
-    s.add_argument("--tail", type=int, default=200)
-    s.set_defaults(func=cmd_logs)
-
-    s = sub.add_parser("extend", help="continue a finished or cancelled job, then refit")
-    s.add_argument("job")
-    s.add_argument("--more-trials", dest="more_trials", type=int, default=None)
-    s.add_argument("--wall-seconds", dest="wall_seconds", type=float, default=None)
-    s.set_defaults(func=cmd_extend)
-
-    s = sub.add_parser("purge", help="delete final jobs older than a duration")
-    s.add_argument("--older-than", dest="older_than", required=True, help="e.g. 30d, 12h")
-    s.set_defaults(func=cmd_purge)
-
-    s = sub.add_parser("workers", help="live workers and what each is doing")
-    s.set_defaults(func=cmd_workers)
-
-    s = sub.add_parser("doctor", help="check the Redis server's settings")
-    s.set_defaults(func=cmd_doctor)
-
-    s = sub.add_parser("server", help="the embedded Redis server")
-    s.add_argument("action", choices=["status", "start", "stop"])
-    s.set_defaults(func=cmd_server)
-
-    s = sub.add_parser(
-        "worker", help="run worker processes (same as python -m workers)", add_help=False
-    )
-    s.set_defaults(func=None)
-
-    s = sub.add_parser("demo", help="run the demo search on generated data")
-    s.add_argument("--trials", type=int, default=40)
-    s.add_argument("--seconds", type=float, default=120.0)
-    s.add_argument("--processes", type=int, default=2)
-    s.set_defaults(func=cmd_demo)
+    p.add_argument("--version", action="version", version=f"tutti {__version__}")
+    _global_options(p, after=False)
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", title="commands", required=True)
+    for add in _ADDERS:
+        add(sub)
+    _add_list_workers(sub, "workers", listed=False)
     return p
+
+
+def _command_index(argv: list[str]) -> int:
+    """Position of the command word in ``argv`` (after any global options)."""
+    i = 0
+    while i < len(argv):
+        if argv[i] in ("--redis-url", "--prefix"):
+            i += 2
+        elif argv[i].startswith(("--redis-url=", "--prefix=")):
+            i += 1
+        else:
+            break
+    return i
+
+
+def _run_workers(argv: list[str], i: int) -> int:
+    """``tutti [globals] start-workers …``: exec the worker launcher with what follows."""
+    if argv[i] in RENAMED:
+        _warn_renamed(f"tutti {argv[i]}", f"tutti {RENAMED[argv[i]]}")
+    head, rest = argv[:i], argv[i + 1 :]
+    args = build_parser().parse_args([*head, "status"])
+    if args.redis_url and "--redis-url" not in rest:
+        rest = ["--redis-url", args.redis_url, *rest]
+    if args.prefix and "--prefix" not in rest:
+        rest = ["--prefix", args.prefix, *rest]
+    os.execv(sys.executable, [sys.executable, "-m", "tuttiml.workers", *rest])
+    return 0  # pragma: no cover
+
+
+def _unknown_options(parser: argparse.ArgumentParser, args: Any, extra: list[str]) -> None:
+    """Refuse unknown options, naming the closest known one."""
+    sub = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+    cmd = sub.choices[args.command]
+    known = [s for a in cmd._actions for s in a.option_strings if a.help != argparse.SUPPRESS]
+    lines, after_option = [], False
+    for token in extra:
+        word = token.split("=", 1)[0]
+        if not word.startswith("-"):
+            if not after_option:  # a value of the unknown option before it is no news
+                lines.append(f"unexpected argument {token!r}")
+            after_option = False
+            continue
+        after_option = "=" not in token
+        guess = difflib.get_close_matches(word, known, n=1, cutoff=0.6)
+        lines.append(f"unknown option {word}" + (f"; did you mean {guess[0]}?" if guess else ""))
+    cmd.exit(2, f"{cmd.prog}: error: {'; '.join(lines)} (see {cmd.prog} --help)\n")
 
 
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
+    i = _command_index(argv)
+    if i < len(argv) and argv[i] in WORKER_COMMANDS:
+        return _run_workers(argv, i)
     parser = build_parser()
-    # `tutti [--redis-url U] [--prefix P] worker …` hands what follows to the worker launcher
-    i = 0
-    while i < len(argv) and argv[i] in ("--redis-url", "--prefix"):
-        i += 2
-    if i < len(argv) and argv[i] == "worker":
-        head, rest = argv[:i], argv[i + 1 :]
-        args = parser.parse_args([*head, "status"])
-        if args.redis_url and "--redis-url" not in rest:
-            rest = ["--redis-url", args.redis_url, *rest]
-        if args.prefix and "--prefix" not in rest:
-            rest = ["--prefix", args.prefix, *rest]
-        return cmd_worker(args, rest)
-    args = parser.parse_args(argv)
+    args, extra = parser.parse_known_args(argv)
+    if extra:
+        _unknown_options(parser, args, extra)
+    for name in ("redis_url", "prefix"):
+        if not hasattr(args, name):
+            setattr(args, name, None)
+    if getattr(args, "renamed_from", None):
+        _warn_renamed(f"tutti {args.renamed_from}", f"tutti {RENAMED[args.renamed_from]}")
     try:
         code = int(args.func(args) or 0)
         sys.stdout.flush()  # a closed pipe shows here, inside the handlers below

@@ -6,6 +6,7 @@ import json
 import secrets
 import sys
 import time
+import warnings
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -36,6 +37,74 @@ def _fmt_seconds(s: float) -> str:
         if s >= 3600
         else f"{s // 60:02d}:{s % 60:02d}"
     )
+
+
+#: Keys of ``Job.status()`` (and of each job in ``tutti status --json``), in this order.
+STATUS_KEYS: tuple[str, ...] = (
+    "job",
+    "name",
+    "state",
+    "phase",
+    "task",
+    "metric",
+    "trials_done",
+    "max_trials",
+    "complete",
+    "pruned",
+    "failed",
+    "best_score",
+    "elapsed_seconds",
+    "seconds_left",
+    "stop_reason",
+    "reason",
+    "explanations",
+    "explain_budget",
+    "explain_parts",
+)
+
+#: Old names of status keys (tutti 0.1), still readable with a DeprecationWarning until 0.3.
+_OLD_STATUS_KEYS = {
+    "budget": "max_trials",
+    "best": "best_score",
+    "elapsed": "elapsed_seconds",
+    "eta": "seconds_left",
+}
+
+
+#: Columns of ``Job.leaderboard()`` (and of each row in ``tutti leaderboard --json``).
+LEADERBOARD_COLUMNS: tuple[str, ...] = (
+    "rank",
+    "candidate",
+    "family",
+    "members",
+    "score",
+    "score_std",
+    "folds",
+    "fit_seconds",
+    "predict_ms",
+    "size_bytes",
+    "trial",
+    "exported",
+)
+
+
+class JobStatus(dict[str, Any]):
+    """``Job.status()``: a plain dict (JSON-ready) whose pre-0.2 key names still read.
+
+    ``status["budget"]`` returns ``status["max_trials"]`` with a DeprecationWarning; the
+    old names are never stored, so ``json.dumps`` and iteration show only ``STATUS_KEYS``.
+    """
+
+    def __missing__(self, key: str) -> Any:
+        new = _OLD_STATUS_KEYS.get(key)
+        if new is None:
+            raise KeyError(key)
+        warnings.warn(
+            f"job status key {key!r} is deprecated and will be removed in tutti 0.3; use {new!r}",
+            DeprecationWarning,
+            stacklevel=2,
+        )
+        return self[new]
 
 
 class Client:
@@ -124,22 +193,41 @@ class Client:
     def jobs(self) -> list[Job]:
         return [Job(self, j) for j in self.store.job_ids()]
 
-    def status(self) -> pd.DataFrame:
-        """One row per job: state, progress, best score, failures, elapsed."""
-        rows = [j.status() for j in self.jobs()]
-        return pd.DataFrame(rows)
+    def status(self) -> list[JobStatus]:
+        """Every job's ``Job.status()`` dict, oldest first (``pd.DataFrame(...)`` for a table)."""
+        return [j.status() for j in self.jobs()]
 
     # ------------------------------------------------------------------ local workers
     def start_workers(
-        self, processes: int = 2, *, burst: bool = True, log_path: str | Path | None = None
+        self,
+        processes: int = 2,
+        *,
+        exit_when_empty: bool = True,
+        log_path: str | Path | None = None,
+        burst: bool | None = None,
     ) -> Any:
-        """Start ``python -m workers`` on this machine against this client's store."""
+        """Start ``python -m tuttiml.workers`` on this machine against this client's store.
+
+        Args:
+            processes: worker processes to start.
+            exit_when_empty: the workers exit once no job is left to run.
+            log_path: file their output is appended to (default: discarded).
+            burst: deprecated spelling of ``exit_when_empty`` (removed in 0.3).
+        """
         import subprocess
 
+        if burst is not None:
+            warnings.warn(
+                "start_workers(burst=...) is deprecated and will be removed in tutti 0.3; "
+                "use exit_when_empty=...",
+                DeprecationWarning,
+                stacklevel=2,
+            )
+            exit_when_empty = burst
         cmd = [
             sys.executable,
             "-m",
-            "workers",
+            "tuttiml.workers",
             "--processes",
             str(processes),
             "--redis-url",
@@ -147,19 +235,28 @@ class Client:
             "--prefix",
             self.settings.prefix,
         ]
-        if burst:
-            cmd.append("--burst")
+        if exit_when_empty:
+            cmd.append("--exit-when-empty")
         out = open(log_path, "ab") if log_path else subprocess.DEVNULL  # noqa: SIM115
         return subprocess.Popen(cmd, stdout=out, stderr=subprocess.STDOUT)
 
-    def purge(self, older_than_seconds: float) -> list[str]:
-        """Delete every finished, failed or cancelled job submitted before the cut-off."""
+    def purge(self, older_than_seconds: float, *, dry_run: bool = False) -> list[str]:
+        """Delete every finished, failed or cancelled job submitted before the cut-off.
+
+        Args:
+            older_than_seconds: age (since submission) a final job must exceed.
+            dry_run: only list the jobs that would be deleted.
+
+        Returns:
+            The ids of the jobs deleted (or, with ``dry_run``, that would be).
+        """
         cut = time.time() - older_than_seconds
         gone = []
         for job in self.jobs():
             rec = job.record()
             if JobState(rec["state"]).terminal and float(rec.get("created_at", 0)) < cut:
-                job.delete()
+                if not dry_run:
+                    job.delete()
                 gone.append(job.id)
         return gone
 
@@ -204,13 +301,18 @@ class Job:
         return SearchSpec.model_validate(self.record()["spec"])
 
     # ------------------------------------------------------------------ progress
-    def status(self) -> dict[str, Any]:
-        """State, trials done / budget, best score (natural sign), failures, elapsed seconds.
+    def status(self) -> JobStatus:
+        """Where the job stands, as a plain dict with the keys of ``STATUS_KEYS``.
 
+        ``best_score`` has the metric's natural sign; ``phase`` says what finalize is doing
+        while the state is ``finalizing`` (empty otherwise); ``seconds_left`` is an estimate
+        while running (``None`` otherwise). The same dict is what ``tutti status --json``
+        prints, one per job.
         ``explanations`` is ``pending``, ``running``, ``done`` or ``failed`` once the model is
         committed (None before, and for jobs committed before explanations were a task of
         their own); ``explain_parts`` says for each part ``done``, ``pending`` or
         ``not run: <reason>`` once they are committed.
+
         """
         rec = self.record()
         spec = SearchSpec.model_validate(rec["spec"])
@@ -221,32 +323,37 @@ class Job:
         start = rec.get("started_at")
         end = rec.get("finalized_at") or (time.time() if start else None)
         elapsed = (end - start) if start and end else 0.0
+        state = JobState(rec["state"])
         eta = None
-        if start and done and JobState(rec["state"]) is JobState.RUNNING:
+        if start and done and state is JobState.RUNNING:
             per = elapsed / done
             left_trials = (spec.max_trials - done) * per
             limits = [left_trials]
             if spec.wall_seconds:
                 limits.append(start + spec.wall_seconds - time.time())
             eta = max(min(limits), 0.0)
-        return {
-            "job": self.id,
-            "name": rec.get("name") or "",
-            "state": rec["state"],
-            "task": rec.get("task"),
-            "metric": metric.value if metric else None,
-            "trials_done": done,
-            "budget": spec.max_trials,
-            "complete": int(rec.get("n_complete", 0) or 0),
-            "pruned": int(rec.get("n_pruned", 0) or 0),
-            "failed": int(rec.get("n_failed", 0) or 0),
-            "best": best_natural,
-            "elapsed": elapsed,
-            "eta": eta,
-            "stop_reason": rec.get("stop_reason"),
-            "reason": rec.get("reason"),
+        finalizing = state is JobState.FINALIZING or (
+            state is JobState.CANCELLED and rec.get("committed_epoch") is None
+        )
+        return JobStatus(
+            job=self.id,
+            name=rec.get("name") or "",
+            state=rec["state"],
+            phase=str(rec.get("phase") or "") if finalizing else "",
+            task=rec.get("task"),
+            metric=metric.value if metric else None,
+            trials_done=done,
+            max_trials=spec.max_trials,
+            complete=int(rec.get("n_complete", 0) or 0),
+            pruned=int(rec.get("n_pruned", 0) or 0),
+            failed=int(rec.get("n_failed", 0) or 0),
+            best_score=best_natural,
+            elapsed_seconds=elapsed,
+            seconds_left=eta,
+            stop_reason=rec.get("stop_reason"),
+            reason=rec.get("reason"),
             **self._explanations(rec),
-        }
+        )
 
     def _explanations(self, rec: dict[str, Any]) -> dict[str, Any]:
         """The explanations' state, their budget and, once settled, each part's status."""
@@ -268,6 +375,14 @@ class Job:
     def state(self) -> JobState:
         return self.store.state(self.id)
 
+    def is_final(self, state: str | None = None) -> bool:
+        """Whether nothing more will happen to the job: finished, failed, or cancelled with
+        its finalize committed (a cancelled job still fits its best-so-far)."""
+        st = JobState(state) if state is not None else self.state
+        if not st.terminal:
+            return False
+        return st is not JobState.CANCELLED or self.record().get("committed_epoch") is not None
+
     def wait(
         self,
         *,
@@ -276,11 +391,19 @@ class Job:
         poll: float = 1.0,
         stream: Any = None,
         explanations: bool = False,
-    ) -> dict[str, Any]:
+    ) -> JobStatus:
         """Block until the job is final; with ``progress`` draw a one-line progress bar.
 
-        While the job needs a worker and none is alive on this store for ``NO_WORKER_SECONDS``,
-        a line on ``stream`` (default stderr) says so and how to start one; waiting goes on.
+        On a terminal the line is redrawn in place; elsewhere a line is written whenever the
+        trials, the best score, the state or finalize's phase change (and every 30 s). While
+        the job needs a worker and none is alive on this store for ``NO_WORKER_SECONDS``, a
+        line on ``stream`` (default stderr) says so and how to start one; waiting goes on.
+
+        The model is ready when the job is final; its explanations follow (``status()``
+        shows them pending). With ``explanations=True`` wait for those too.
+
+        Returns:
+            The final ``status()``.
 
         The model is ready when the job is final; its explanations follow (``status()``
         shows them pending). With ``explanations=True`` wait for those too.
@@ -291,14 +414,12 @@ class Job:
         stream = stream or sys.stderr
         tty = bool(getattr(stream, "isatty", lambda: False)())
         end = None if timeout is None else time.monotonic() + timeout
-        last, last_at = "", 0.0
+        last: tuple[Any, ...] = ()
+        last_at = 0.0
         watch = _WorkerWatch(self.client)
         while True:
             st = self.status()
-            final = JobState(st["state"]).terminal and (
-                st["state"] != JobState.CANCELLED.value
-                or self.record().get("committed_epoch") is not None
-            )
+            final = self.is_final(st["state"])
             if final and explanations and st["explanations"] is not None:
                 final = ExplainState(st["explanations"]).final
             if not final and watch.nobody_for_long(st["state"]):
@@ -306,16 +427,14 @@ class Job:
                 stream.flush()
             if progress:
                 line = progress_line(st)
+                keys = ("trials_done", "best_score", "state", "phase", "explanations")
+                key = tuple(st[k] for k in keys)
                 if tty:
-                    stream.write("\r" + line)
-                elif (
-                    line.split(" · ")[:2] != last.split(" · ")[:2]
-                    or final
-                    or (time.monotonic() - last_at > 30)
-                ):
+                    stream.write("\r" + line + "\x1b[K")
+                elif key != last or final or (time.monotonic() - last_at > 30):
                     stream.write(line.rstrip() + "\n")  # a log-friendly line per change
                     last_at = time.monotonic()
-                last = line
+                last = key
                 stream.flush()
             if final:
                 if progress and tty:
@@ -329,12 +448,25 @@ class Job:
 
     # ------------------------------------------------------------------ results
     def trials(self) -> pd.DataFrame:
-        """Every finished trial (complete, pruned, failed) with its parameters."""
-        return pd.DataFrame(self.store.trial_rows(self.id))
+        """Every finished trial (complete, pruned, failed) with its parameters.
+
+        ``score`` and ``fold_scores`` are in the metric's natural sign, as on the leaderboard.
+        """
+        rows = self.store.trial_rows(self.id)
+        metric = self.spec().metric
+        if metric is not None:
+            for r in rows:
+                if r.get("score") is not None:
+                    r["score"] = natural(metric, r["score"])
+                if r.get("fold_scores"):
+                    r["fold_scores"] = [natural(metric, f) for f in r["fold_scores"]]
+        return pd.DataFrame(rows)
 
     def leaderboard(self) -> pd.DataFrame:
         """Complete candidates best first: trials and library ensembles, natural metric sign.
 
+        Columns are ``LEADERBOARD_COLUMNS`` (plus ``diff_vs_rank1``, ``p_value``,
+        ``distinguishable``, ``bias`` and ``variance`` once finalize computed them).
         ``DataFrame.attrs`` carries the metric and whether greater or smaller is better. Once
         the job is final, ``exported`` marks the candidate behind the stored pipeline: finalize
         ranks trials by their CV score minus the optimism of picking the best of them (BBC-CV)
@@ -351,10 +483,10 @@ class Job:
                     "family": r["family"],
                     "members": _members(r),
                     "score": float(r["score"]),
-                    "std": float(r.get("score_std", 0.0)),
+                    "score_std": float(r.get("score_std", 0.0)),
                     "folds": len(r.get("fold_scores", [])),
                     "fit_seconds": float(r.get("fit_seconds", 0.0)),
-                    "predict_ms_per_1000": float(r.get("predict_ms", 0.0)),
+                    "predict_ms": float(r.get("predict_ms", 0.0)),
                     "size_bytes": r.get("size_bytes"),
                     "trial": int(r["number"]),
                 }
@@ -367,43 +499,31 @@ class Job:
                     "family": f"library:{ens['method']}",
                     "members": ",".join(f"t{m}" for m in ens["members"]),
                     "score": float(ens["score"]),
-                    "std": float(ens.get("score_std", 0.0)),
+                    "score_std": float(ens.get("score_std", 0.0)),
                     "folds": len(ens.get("fold_scores", [])),
                     "fit_seconds": None,
-                    "predict_ms_per_1000": None,
+                    "predict_ms": None,
                     "size_bytes": None,
                     "trial": None,
                 }
             )
-        cols = [
-            "rank",
-            "candidate",
-            "family",
-            "members",
-            metric.value,
-            f"{metric.value}_std",
-            "folds",
-            "fit_seconds",
-            "predict_ms_per_1000",
-            "size_bytes",
-            "trial",
-        ]
+        cols = list(LEADERBOARD_COLUMNS)
         if not rows:
             board = pd.DataFrame(columns=cols)
         else:
             board = pd.DataFrame(rows).sort_values(
                 ["score", "candidate"], ascending=[False, True], kind="stable"
             )
-            board[metric.value] = [natural(metric, s) for s in board.pop("score")]
-            board[f"{metric.value}_std"] = board.pop("std")
+            board["score"] = [natural(metric, s) for s in board["score"]]
             board.insert(0, "rank", range(1, len(board) + 1))
-            board = board[cols].reset_index(drop=True)
-            board = _with_explanations(board, extras.get("explain") or {})
             # the exported pipeline: trials compete with library ensembles after their
             # selection optimism is taken off, so it need not be rank 1
             best = (extras.get("best") or {}).get("id")
-            if best is not None:
-                board["exported"] = board["candidate"] == best
+            board["exported"] = board["candidate"] == best
+            board = board[cols].reset_index(drop=True)
+            for col in ("trial", "size_bytes"):  # whole numbers, missing for library rows
+                board[col] = board[col].astype("Int64")
+            board = _with_explanations(board, extras.get("explain") or {})
         board.attrs.update(
             metric=metric.value,
             greater_is_better=score_sign(metric) > 0,
@@ -559,7 +679,7 @@ class _WorkerWatch:
         return (
             f"tutti: no worker is alive on this store ({masked_url(self.client.url)}, prefix "
             f"{settings.prefix!r}), so the job waits; start one on any machine that reaches it: "
-            f"`tutti{where}{prefix} worker --processes 2` (still waiting)"
+            f"`tutti{where}{prefix} start-workers --processes 2` (still waiting)"
         )
 
 
@@ -571,7 +691,7 @@ def _with_explanations(board: pd.DataFrame, explain: dict[str, Any]) -> pd.DataF
             c for c in ("candidate", "mean_diff", "p_value", "distinguishable") if c in sig.columns
         ]
         board = board.merge(
-            sig[keep].rename(columns={"mean_diff": "diff_vs_1"}), on="candidate", how="left"
+            sig[keep].rename(columns={"mean_diff": "diff_vs_rank1"}), on="candidate", how="left"
         )
     bv = pd.DataFrame(explain.get("bias_variance") or [])
     if not bv.empty:
@@ -584,14 +704,18 @@ def _members(row: dict[str, Any]) -> str:
 
 
 def progress_line(st: dict[str, Any]) -> str:
-    """``[#####-----] 12/60 trials · best roc_auc 0.9612 · 01:23 · running``."""
+    """``[#####-----] 12/60 trials · best roc_auc 0.9612 · 01:23 · running``.
+
+    While finalizing, the state is followed by what finalize is doing (its ``phase``).
+    """
     width = 24
-    frac = min(st["trials_done"] / max(st["budget"], 1), 1.0)
+    frac = min(st["trials_done"] / max(st["max_trials"], 1), 1.0)
     bar = "#" * round(frac * width) + "-" * (width - round(frac * width))
-    best = "—" if st["best"] is None else f"{st['best']:.4f}"
+    best = "—" if st["best_score"] is None else f"{st['best_score']:.4f}"
     fails = f" · {st['failed']} failed" if st["failed"] else ""
+    state = st["state"] + (f": {st['phase']}" if st.get("phase") else "")
     explained = f" · explanations {st['explanations']}" if st.get("explanations") else ""
     return (
-        f"[{bar}] {st['trials_done']}/{st['budget']} trials · best {st['metric']} {best}"
-        f" · {_fmt_seconds(st['elapsed'])}{fails} · {st['state']}{explained}   "
+        f"[{bar}] {st['trials_done']}/{st['max_trials']} trials · best {st['metric']} {best}"
+        f" · {_fmt_seconds(st['elapsed_seconds'])}{fails} · {state}{explained}   "
     )

@@ -13,6 +13,7 @@ import sys
 import time
 from collections.abc import Callable
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -101,8 +102,8 @@ def predict_hint(model_path: Path, rows_path: Path) -> str:
 
 def run_demo(
     *,
-    trials: int = 40,
-    seconds: float = 120.0,
+    max_trials: int = 40,
+    wall_seconds: float = 120.0,
     processes: int = 2,
     redis_url: str | None = None,
     prefix: str | None = None,
@@ -123,20 +124,23 @@ def run_demo(
     )
     client = Client(url=redis_url, prefix=prefix)
     print(f"store: {client.url}")
-    workers = client.start_workers(processes, burst=True)
+    workers = client.start_workers(processes, exit_when_empty=True)
     try:
         t0 = time.time()
         job = client.submit(
             train,
             target="failed_within_30d",
-            max_trials=trials,
-            wall_seconds=seconds,
+            max_trials=max_trials,
+            wall_seconds=wall_seconds,
             parallelism=processes,
             seed=0,
-            trial_timeout=max(60.0, seconds / 2),
+            trial_timeout=max(60.0, wall_seconds / 2),
             name="pump failures demo",
         )
-        print(f"job {job.id}: {trials} trials or {seconds:.0f} s, {processes} worker processes")
+        print(
+            f"job {job.id}: {max_trials} trials or {wall_seconds:.0f} s, "
+            f"{processes} worker processes"
+        )
         job.wait(progress=True, stream=sys.stdout)
         st = job.status()
         print(
@@ -168,3 +172,21 @@ def run_demo(
         workers.wait(timeout=60) if workers.poll() is None else None
         if workers.poll() is None:
             workers.terminate()
+        _still_running(client)
+
+
+def _still_running(client: Any) -> None:
+    """The demo's last lines: what it leaves running in the background, and how to stop it."""
+    if client.settings.redis_url:
+        print(f"still running: nothing started by the demo (the store is {client.url}).")
+        return
+    from tuttiml.service.server import EmbeddedServer
+
+    st = EmbeddedServer(client.settings.home).status()
+    if not st["running"]:
+        return
+    print(
+        f"still running: the embedded Redis server (pid {st['pid']}, data in {st['home']}), "
+        "which keeps the demo's job for `tutti status`, `tutti report` and friends."
+    )
+    print("stop it with: tutti server stop   (jobs are kept; any tutti command starts it again)")

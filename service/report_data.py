@@ -144,16 +144,17 @@ def collect(job: JobView) -> dict[str, Any]:
             "candidate": r["candidate"],
             "family": r["family"],
             "members": r["members"],
-            "score": r[metric.value],
-            "std": r[f"{metric.value}_std"],
+            "score": r["score"],
+            "score_std": r["score_std"],
             "fit_seconds": r["fit_seconds"],
-            "predict_ms": r["predict_ms_per_1000"],
+            "predict_ms": r["predict_ms"],
             "size_bytes": r.get("size_bytes"),
+            "exported": bool(r["exported"]),
         }
         s = sig.get(r["candidate"])
         if s is not None:
             row.update(
-                mean_diff=s.get("mean_diff"),
+                diff_vs_rank1=s.get("mean_diff"),
                 p_value=s.get("p_value"),
                 distinguishable=s.get("distinguishable"),
             )

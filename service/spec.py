@@ -127,34 +127,78 @@ class SearchSpec(BaseModel):
                     raise ValueError(f"{name}: expected a number, got {data[name]!r}")
         return data
 
-    schema_version: int = SCHEMA_VERSION
+    schema_version: int = Field(
+        default=SCHEMA_VERSION, description="Version of this spec's layout (set by tutti)."
+    )
     target: str = Field(min_length=1, description="Column to predict.")
-    task: Task = Task.AUTO
-    metric: Metric | None = None
+    task: Task = Field(
+        default=Task.AUTO, description="Prediction task; auto decides from the target column."
+    )
+    metric: Metric | None = Field(
+        default=None,
+        description="Score to rank candidates by (default per task: see METRICS_BY_TASK).",
+    )
     folds: int = Field(default=5, ge=2, le=20, description="Number of cross-validation folds.")
-    group_column: str | None = None
-    order_column: str | None = None
-    holdout: float = Field(default=0.0, ge=0.0, le=0.5)
-    max_trials: int = Field(default=50, ge=1, le=1_000_000)
-    wall_seconds: float | None = Field(default=3600.0, gt=0, le=30 * 24 * 3600)
-    deadline: datetime | None = None
-    trial_timeout: float = Field(default=600.0, gt=0, le=24 * 3600)
+    group_column: str | None = Field(
+        default=None, description="Column whose groups never straddle two folds."
+    )
+    order_column: str | None = Field(
+        default=None, description="Column giving time order: folds train on the past only."
+    )
+    holdout: float = Field(
+        default=0.0,
+        ge=0.0,
+        le=0.5,
+        description="Share of rows kept aside, scored once at the end.",
+    )
+    max_trials: int = Field(
+        default=50, ge=1, le=1_000_000, description="Most trials to run (complete or pruned)."
+    )
+    wall_seconds: float | None = Field(
+        default=3600.0,
+        gt=0,
+        le=30 * 24 * 3600,
+        description="Wall-clock budget in seconds from the first worker's start.",
+    )
+    deadline: datetime | None = Field(
+        default=None, description="Absolute time by which the model is due (ISO 8601)."
+    )
+    trial_timeout: float = Field(
+        default=600.0, gt=0, le=24 * 3600, description="Seconds after which a trial is killed."
+    )
     explain_seconds: float | None = Field(
         default=None,
         ge=0,
         le=24 * 3600,
         description=(
-            "Time the explanations get after the model is committed; None: a quarter of the "
-            "search time within the workers' TUTTI_EXPLAIN_MIN/MAX_SECONDS; 0: none that fit "
+            "Time the explanations get after the model is committed (None: a quarter of the "
+            "search time within the workers' TUTTI_EXPLAIN_MIN/MAX_SECONDS); 0: none that fit "
             "models."
         ),
     )
-    max_failed_trials: int | None = Field(default=None, ge=1)
-    memory_limit_mb: int | None = Field(default=None, ge=64)
-    families: tuple[str, ...] | None = None
-    seed: int = Field(default=0, ge=0, le=2**31 - 1)
-    parallelism: int = Field(default=2, ge=1, le=256)
-    library_size: int = Field(default=5, ge=0, le=100)
+    max_failed_trials: int | None = Field(
+        default=None,
+        ge=1,
+        description="Failed trials that end the search (None: max(10, max_trials // 2)).",
+    )
+    memory_limit_mb: int | None = Field(
+        default=None, ge=64, description="Memory cap of one trial in MB (None: no cap)."
+    )
+    families: tuple[str, ...] | None = Field(
+        default=None, description="Ensemble families to search (None: all)."
+    )
+    seed: int = Field(
+        default=0, ge=0, le=2**31 - 1, description="Seed of the folds, samplers and models."
+    )
+    parallelism: int = Field(
+        default=2, ge=1, le=256, description="Search shards (about the worker processes to use)."
+    )
+    library_size: int = Field(
+        default=5,
+        ge=0,
+        le=100,
+        description="Candidates per family whose out-of-fold predictions feed library ensembles.",
+    )
     halving_rows: int | None = Field(
         default=100_000,
         ge=100,
@@ -164,10 +208,17 @@ class SearchSpec(BaseModel):
             "None turns it off."
         ),
     )
-    priority: Literal["normal", "high"] = "normal"
-    drop_columns: tuple[str, ...] = ()
-    allow_leaks: bool = False
-    name: str | None = Field(default=None, max_length=200)
+    priority: Literal["normal", "high"] = Field(
+        default="normal", description="high puts the job ahead of jobs already queued."
+    )
+    drop_columns: tuple[str, ...] = Field(
+        default=(), description="Columns to leave out of the features."
+    )
+    allow_leaks: bool = Field(
+        default=False,
+        description="Warn about, instead of refusing, columns that give the target away.",
+    )
+    name: str | None = Field(default=None, max_length=200, description="A label for the job.")
 
     @field_validator("families")
     @classmethod
@@ -258,14 +309,37 @@ def _location(loc: tuple[Any, ...]) -> str:
     return out or "spec"
 
 
+#: Spec fields a user sets (``schema_version`` is written by tutti itself).
+USER_FIELDS: tuple[str, ...] = tuple(f for f in SearchSpec.model_fields if f != "schema_version")
+
+#: Fields that hold a list of names.
+LIST_FIELDS: frozenset[str] = frozenset({"families", "drop_columns"})
+
+
+def suggest_field(name: str) -> str | None:
+    """The spec field ``name`` most likely means (a typo, a dash or a missing letter), if any."""
+    import difflib
+
+    key = name.strip().replace("-", "_").lower()
+    if key in USER_FIELDS:
+        return key
+    close = difflib.get_close_matches(key, USER_FIELDS, n=1, cutoff=0.7)
+    return close[0] if close else None
+
+
 def _fix_hint(err: dict[str, Any]) -> str:
     kind = err.get("type", "")
+    loc = tuple(err.get("loc", ()))
     if kind == "extra_forbidden":
-        return f"remove it; known fields are {', '.join(SearchSpec.model_fields)}"
+        guess = suggest_field(str(loc[-1])) if loc else None
+        if guess:
+            return f"did you mean {guess}?"
+        return f"remove it; known fields are {', '.join(USER_FIELDS)}"
     if kind == "missing":
         return "give a value"
     if kind in ("tuple_type", "list_type"):
-        return "pass a list, e.g. ['boosting', 'bagging']"
+        example = "['boosting', 'bagging']" if loc and loc[0] == "families" else "['id', 'notes']"
+        return f"pass a list, e.g. {example}"
     return ""
 
 
@@ -295,6 +369,8 @@ def parse_spec(data: Any = None, /, **fields: Any) -> SearchSpec:
         for err in exc.errors():
             where = _location(tuple(err.get("loc", ())))
             msg = err.get("msg", "invalid").removeprefix("Value error, ")
+            if err.get("type") == "extra_forbidden":
+                msg = "not a spec field"
             value = err.get("input")
             shown = (
                 "" if err.get("type") == "missing" or not err.get("loc") else f" (got {value!r})"

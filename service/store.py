@@ -103,6 +103,17 @@ return 1
 """
 
 
+# phase of a finalize in progress: written only while the job record exists (a job deleted
+# meanwhile must not come back as a half record)
+_PHASE = """
+if redis.call('EXISTS', KEYS[1]) == 1 then
+  redis.call('HSET', KEYS[1], 'phase', ARGV[1], 'phase_at', ARGV[2])
+  return 1
+end
+return 0
+"""
+
+
 def _now() -> float:
     return time.time()
 
@@ -157,6 +168,7 @@ class JobStore:
         self._transition = client.register_script(_TRANSITION)
         self._ticket = client.register_script(_TICKET)
         self._record = client.register_script(_RECORD)
+        self._phase = client.register_script(_PHASE)
 
     # ------------------------------------------------------------------ data blobs
     def has_data(self, digest: str) -> bool:
@@ -281,6 +293,10 @@ class JobStore:
             self.keys.job(job_id),
             mapping={k: (v if isinstance(v, str) else json.dumps(v)) for k, v in fields.items()},
         )
+
+    def set_phase(self, job_id: str, phase: str) -> bool:
+        """Record what finalize is doing now (shown by ``status`` while finalizing)."""
+        return bool(self._phase(keys=[self.keys.job(job_id)], args=[phase, repr(_now())]))
 
     def set_field_once(self, job_id: str, name: str, value: Any) -> Any:
         """Set a field only if unset; return the value that is stored afterwards."""

@@ -80,12 +80,12 @@ def start_workers(
     ``DEFAULT_EXPLAIN`` back in ``env``.
     """
     if via_cli:
-        cmd = [sys.executable, "-m", "tuttiml.service.cli", "worker"]
+        cmd = [sys.executable, "-m", "tuttiml.service.cli", "start-workers"]
     else:
         cmd = [sys.executable, "-m", "tuttiml.workers"]
     cmd += ["--processes", str(processes), "--redis-url", url, "--prefix", prefix]
     if burst:
-        cmd.append("--burst")
+        cmd.append("--exit-when-empty")
     full_env = {
         **os.environ,
         "PYTHONPATH": str(ROOT),

@@ -82,6 +82,12 @@ class Finalizer:
         with contextlib.suppress(Exception):
             self.store.log(self.job_id, f"[{self.ctx.name}] finalize: {line}")
 
+    def phase(self, text: str) -> None:
+        """Say what finalize is doing now: on the job record (``tutti status``) and in its log."""
+        self.log(text)
+        with contextlib.suppress(Exception):
+            self.store.set_phase(self.job_id, text)
+
     def request(self, **extra: Any) -> dict[str, Any]:
         return self.ctx.request(
             self.job_id, seed=self.spec.seed, memory_mb=self.spec.memory_limit_mb, **extra
@@ -97,6 +103,7 @@ class Finalizer:
                 self.job_id, JobState.FINALIZING, allowed_from=[JobState.QUEUED, JobState.RUNNING]
             )
         t0 = time.time()
+        self.phase("started")
         board = self.store.board(self.job_id)
         if not board:
             return self.commit_empty(final)
@@ -104,7 +111,9 @@ class Finalizer:
         library: list[dict[str, Any]] = []
         selection: dict[str, Any] = {}
         if self.library_in_time(board):
+            self.phase(f"library ensembles over {len(board)} candidates")
             library = self.library_ensembles(board)
+            self.phase("honest estimate of picking the best (BBC-CV)")
             selection = self.selection()  # else the explanations compute it, after the commit
         for ens in library:  # what the best trial's CV score overstates (like with like)
             ens["trial_optimism"] = max(float(selection.get("optimism", 0.0)), 0.0)
@@ -116,6 +125,7 @@ class Finalizer:
         errors: list[str] = []
         for cand in candidates[:REFIT_TRIES]:
             try:
+                self.phase(f"refit of {cand['id']} ({cand['family']}) on all rows")
                 artifacts["best"] = self.refit(cand)
                 chosen = cand
                 break
@@ -147,6 +157,7 @@ class Finalizer:
             "selection": selection,
             "explain": pending_record(self.epoch, budget),
         }
+        self.phase("saving the result")
         ok = self.store.commit_final(
             self.job_id,
             self.epoch,

@@ -34,7 +34,7 @@ class WorkerOptions:
     url: str | None
     prefix: str | None
     home: str | None
-    burst: bool
+    exit_when_empty: bool
     threads: int
     name: str | None
     shard_seconds: float | None = None
@@ -159,7 +159,7 @@ def worker_main(opts: dict[str, Any]) -> None:
         sweep(ctx)
     threading.Thread(target=sweeper, daemon=True, name="tutti-sweep").start()
     try:
-        if not o.burst:
+        if not o.exit_when_empty:
             worker.work(with_scheduler=False, logging_level="WARNING")
         else:
             while not ctx.stop.is_set():
@@ -176,32 +176,86 @@ def worker_main(opts: dict[str, Any]) -> None:
             ctx.store.drop_worker(ctx.name)
 
 
+WORKER_EXAMPLE = "example: tutti start-workers --processes 2 --exit-when-empty"
+
+
 def parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="tutti worker", description="Run tutti worker processes.")
+    p = argparse.ArgumentParser(
+        prog="tutti start-workers",
+        description=(
+            "Run worker processes on this machine: they take search slices and finalize tasks "
+            "of every job in the store, one model fit per process at a time. Ctrl-C or "
+            "SIGTERM lets each finish or fail its current trial, then stop."
+        ),
+        epilog=f"{WORKER_EXAMPLE}\n(also: python -m tuttiml.workers …)",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
     add_worker_arguments(p)
     return p
+
+
+class _DeprecatedFlag(argparse.Action):
+    """An old spelling of a flag: still works, warns once on stderr."""
+
+    def __init__(self, *args: Any, new: str, **kwargs: Any) -> None:
+        self.new = new
+        super().__init__(*args, nargs=0, **kwargs)
+
+    def __call__(self, parser: Any, namespace: Any, values: Any, option: Any = None) -> None:
+        print(
+            f"tutti: warning: {option} is deprecated and will be removed in tutti 0.3; "
+            f"use {self.new}",
+            file=sys.stderr,
+        )
+        setattr(namespace, self.dest, True)
 
 
 def add_worker_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--processes",
         "-p",
+        metavar="N",
         type=int,
         default=None,
         help="worker processes on this machine (default: cores // threads)",
     )
     p.add_argument(
-        "--cores", type=int, default=None, help="cores this machine may use (default: all)"
+        "--cores",
+        metavar="N",
+        type=int,
+        default=None,
+        help="cores this machine may use (default: all)",
     )
-    p.add_argument("--threads", type=int, default=1, help="threads per model fit (default 1)")
-    p.add_argument("--burst", action="store_true", help="exit once no job is left to run")
+    p.add_argument(
+        "--threads", metavar="N", type=int, default=1, help="threads per model fit (default: 1)"
+    )
+    p.add_argument(
+        "--exit-when-empty",
+        dest="exit_when_empty",
+        action="store_true",
+        help="exit once the queues are empty and no job is left to run (default: keep waiting "
+        "for new jobs)",
+    )
+    p.add_argument(
+        "--burst",
+        dest="exit_when_empty",
+        action=_DeprecatedFlag,
+        new="--exit-when-empty",
+        help=argparse.SUPPRESS,
+    )
     p.add_argument(
         "--redis-url",
+        metavar="URL",
         default=None,
-        help="shared Redis (default TUTTI_REDIS_URL or the embedded server)",
+        help="Redis URL shared by clients and workers (default: $TUTTI_REDIS_URL, else the "
+        "embedded server under $TUTTI_HOME)",
     )
-    p.add_argument("--prefix", default=None, help="key prefix (default TUTTI_PREFIX or tutti)")
-    p.add_argument("--name", default=None, help="worker name prefix")
+    p.add_argument(
+        "--prefix",
+        default=None,
+        help="key prefix of the store (default: $TUTTI_PREFIX, else tutti)",
+    )
+    p.add_argument("--name", default=None, help="worker name prefix (default: HOST-PID)")
 
 
 def plan(processes: int | None, cores: int | None, threads: int) -> tuple[int, int]:
@@ -237,7 +291,7 @@ def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
             url=args.redis_url,
             prefix=args.prefix,
             home=home,
-            burst=args.burst,
+            exit_when_empty=args.exit_when_empty,
             threads=threads,
             name=f"{base}.{i}",
         )
@@ -254,7 +308,7 @@ def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
     signal.signal(signal.SIGINT, forward)
     print(
         f"tutti: {processes} worker process(es), {threads} thread(s) per fit; "
-        f"{'burst' if args.burst else 'Ctrl-C to stop'}",
+        f"{'exits when the queues are empty' if args.exit_when_empty else 'Ctrl-C to stop'}",
         flush=True,
     )
     for p in procs:

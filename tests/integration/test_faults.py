@@ -391,7 +391,7 @@ def test_one_worker_and_a_fixed_seed_give_the_same_leaderboard(
         )
         w.wait(timeout=300)
         board = job.leaderboard()
-        boards.append(board[["candidate", "family", "roc_auc"]].reset_index(drop=True))
+        boards.append(board[["candidate", "family", "score"]].reset_index(drop=True))
         r = redis.Redis.from_url(redis_url)
         for pattern in (f"{prefix}:*", f"rq:*{prefix}-*"):
             keys = list(r.scan_iter(match=pattern))

@@ -108,7 +108,7 @@ def test_waiting_without_workers_says_so_and_a_cancelled_job_exits_nonzero(
     try:
         submitted_at, job_id = out.get(timeout=120)
         _, line = _until(err, "no worker is alive", 15.0)  # within 15 s of the submit
-        assert "worker --processes" in line and prefix in line
+        assert "start-workers --processes" in line and prefix in line
         assert client.job(job_id.strip()).cancel()
         workers = start_workers(redis_url, prefix, 1, log=tmp_path / "workers.log")
         _until(err, "ended cancelled", 120.0)

@@ -50,6 +50,9 @@ def test_purge_removes_only_old_final_jobs(client) -> None:  # type: ignore[no-u
     long_ago = time.time() - 40 * 86400
     client.store.set_fields(old.id, created_at=repr(long_ago))
     client.store.set_fields(queued_old.id, created_at=repr(long_ago))
+    everything = {old.id, recent.id, queued_old.id}
+    assert client.purge(30 * 86400, dry_run=True) == [old.id]  # names it, deletes nothing
+    assert {j.id for j in client.jobs()} == everything
     assert client.purge(30 * 86400) == [old.id]
     assert {j.id for j in client.jobs()} == {recent.id, queued_old.id}
     assert list(client.redis.scan_iter(match=f"{client.keys.prefix}:job:{old.id}*")) == []

@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 import pytest
-from tuttiml.service.report import render_report, write_report
+from tuttiml.service.report import FAMILY_COLORS, render_report, write_report
 
 SAMPLE = Path(__file__).resolve().parents[1] / "fixtures" / "report_sample.json"
 HEADINGS = [
@@ -30,7 +30,7 @@ HEADINGS = [
     "Leakage report",
     "Data summary",
     "Search spec",
-    "Library versions",
+    "Software versions",
 ]
 VOID = {
     "area",
@@ -193,7 +193,8 @@ def test_leaderboard_states_direction_and_significance_caveat(sample: dict[str, 
     assert sample["metric"] == "log_loss" and "lower is better" in page
     board = _section(page, "leaderboard")
     for row in sample["leaderboard"]:
-        assert f"{row['score']:.4f} ± {row['std']:.4f}" in board, row["candidate"]
+        cells = f"<td class=num>{row['score']:.4f}</td><td class=num>{row['score_std']:.4f}</td>"
+        assert cells in board, row["candidate"]
     tested = [r for r in sample["leaderboard"] if r.get("p_value") is not None]
     assert tested  # #1 was compared with the next candidates
     assert "not corrected for #1 having been picked as the best of many" in page
@@ -205,10 +206,44 @@ def test_leaderboard_states_direction_and_significance_caveat(sample: dict[str, 
 
 def test_leaderboard_without_significance_has_no_test_columns(sample: dict[str, Any]) -> None:
     for row in sample["leaderboard"]:
-        for key in ("mean_diff", "p_value", "distinguishable"):
+        for key in ("diff_vs_rank1", "p_value", "distinguishable"):
             row.pop(key, None)
     page = render_report(sample)
-    assert "p-value" not in page and "not distinguishable" not in page
+    assert "p_value" not in page and "not distinguishable" not in page
+
+
+def test_exported_candidate_is_tagged_and_explained(sample: dict[str, Any]) -> None:
+    # finalize may export a candidate below rank 1 (README); mark rank 2 as that one
+    for r in sample["leaderboard"]:
+        r["exported"] = r["rank"] == 2
+    page = render_report(sample)
+    chosen = next(r for r in sample["leaderboard"] if r["exported"])
+    assert page.count('<span class="tag exported">exported</span>') == 1
+    row = re.search(r"<tr>(?:(?!</tr>).)*tag exported(?:(?!</tr>).)*</tr>", page)
+    assert row and f">{chosen['candidate']} <span" in row.group(0)
+    assert f"<b>Exported:</b> {chosen['candidate']}" in page and "It is not rank 1" in page
+    for row in sample["leaderboard"]:
+        row["exported"] = False
+    assert "No candidate is exported yet" in render_report(sample)
+
+
+def test_family_colours_are_the_same_in_every_report(sample: dict[str, Any]) -> None:
+    # a job that searched only some families draws each in the colour it has everywhere
+    def fill_of(page: str, family: str) -> set[str]:
+        legend = re.findall(
+            r'fill="(#[0-9A-Fa-f]{6})"[^>]*/?>(?:</rect>)?<text[^>]*>([^<]+)<', page
+        )
+        return {c for c, label in legend if label == family}
+
+    full = render_report(sample)
+    families = sorted({t["family"] for t in sample["trials"]} & {f for f in FAMILY_COLORS})
+    families = [f for f in families if fill_of(full, f)]  # drawn (has completed trials)
+    assert len(families) >= 3
+    dropped = copy.deepcopy(sample)
+    dropped["trials"] = [t for t in sample["trials"] if t["family"] != families[0]]
+    part = render_report(dropped)
+    for fam in families[1:]:
+        assert fill_of(full, fam) and fill_of(full, fam) == fill_of(part, fam), fam
 
 
 def test_honest_section_shows_all_estimates_and_the_warning(sample: dict[str, Any]) -> None:

@@ -43,7 +43,10 @@ KNOWN = ", ".join(KNOWN_FAMILIES)
         ({"parallelism": 0}, "parallelism", "greater than or equal to 1"),
         ({"memory_limit_mb": 10}, "memory_limit_mb", "greater than or equal to 64"),
         ({"holdout": 0.9}, "holdout", "less than or equal to 0.5"),
-        ({"budget": 3}, "budget", "remove it; known fields are schema_version, target"),
+        ({"budget": 3}, "budget", "remove it; known fields are target, task"),
+        ({"max_trial": 3}, "max_trial: not a spec field", "did you mean max_trials?"),
+        ({"Drop-Columns": ["a"]}, "Drop-Columns", "did you mean drop_columns?"),
+        ({"drop_columns": "id"}, "drop_columns", "pass a list, e.g. ['id', 'notes']"),
         ({"task": "clustering"}, "task", "'auto', 'binary', 'multiclass' or 'regression'"),
         (
             {"task": "regression", "metric": "roc_auc"},
