@@ -55,6 +55,14 @@ def _span_minutes(rows: list[dict[str, Any]]) -> float:
     return max(max(ends) - min(starts), 1e-9) / 60.0
 
 
+def _what(params: dict[str, Any]) -> str:
+    """The learner or kind a trial used (``single.learner``, ``boosting.kind``, ...)."""
+    for key in ("single.learner", "boosting.kind", "bagging.learner", "bagging.kind"):
+        if key in params:
+            return str(params[key])
+    return ""
+
+
 def figures(rows: list[dict[str, Any]]) -> dict[str, Any]:
     """Rates and counts from the job's trial rows (see the module docstring)."""
     done = [r for r in rows if r.get("state") in ("complete", "pruned")]
@@ -68,7 +76,21 @@ def figures(rows: list[dict[str, Any]]) -> dict[str, Any]:
     per_family: dict[str, int] = {}
     for r in done:
         per_family[str(r.get("family"))] = per_family.get(str(r.get("family")), 0) + 1
+    listing = [
+        " ".join(
+            [
+                f"t{r['number']}",
+                str(r.get("family")),
+                _what(r.get("params") or {}),
+                str(r.get("state")),
+                f"{float(r.get('seconds') or 0.0):.1f}s",
+                f"{float(r['score']):.4f}" if r.get("score") is not None else "-",
+            ]
+        )
+        for r in sorted(rows, key=lambda r: int(r["number"]))
+    ]
     return {
+        "trial_list": listing,
         "search_minutes": minutes,
         "trials": len(done),
         "pruned": sum(r.get("state") == "pruned" for r in done),

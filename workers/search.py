@@ -285,8 +285,20 @@ class Shard:
         """Once per job: the portfolio's configurations, in order, before the sampler."""
         if not self.store.claim_field(self.job_id, "defaults_enqueued"):
             return
-        for name, params in portfolio_trials(self.families(), self.fctx, on_error=self.log):
+        start = portfolio_trials(self.families(), self.fctx, on_error=self.log)
+        for name, params in start:
             study.enqueue_trial({"family": name, **params}, user_attrs={"default": True})
+        for name in {name for name, _ in start}:
+            self.store.set_fields(self.job_id, **{f"seeded:{name}": 1})
+
+    def _seed_family(self, study: optuna.Study, family: str) -> None:
+        """The first trial of a family the portfolio left out is its cheapest default."""
+        if not self.store.r.hsetnx(self.store.keys.job(self.job_id), f"seeded:{family}", 1):
+            return
+        fam = get_family(family)
+        defaults = sorted(fam.defaults(self.fctx), key=lambda p: fam.cost(p, self.fctx))
+        if defaults:
+            study.enqueue_trial({"family": family, **defaults[0]}, user_attrs={"default": True})
 
     def budget(self) -> Budget:
         """How much of the job's budget is spent (time or trials) and search seconds left."""
@@ -344,7 +356,9 @@ class Shard:
         busy0 = _busy_seconds(study)
         a0 = time.perf_counter()
         try:
-            study.sampler = with_family(self._sampler, self.next_family())
+            family = self.next_family()
+            self._seed_family(study, family)
+            study.sampler = with_family(self._sampler, family)
         except Exception as exc:  # the schedule must never stop the search
             self.log(f"schedule fell back to the sampler: {type(exc).__name__}: {exc}")
             study.sampler = self._sampler
