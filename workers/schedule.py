@@ -33,6 +33,14 @@ from tuttiml.workers.families._base import FamilyContext
 
 #: Families whose trials fit one model (or one bag / boosted sequence) per fold.
 MEMBER_FAMILIES: frozenset[str] = frozenset({"single", "bagging", "boosting"})
+#: The parameter that picks a member family's learner or kind: each value tried so far is
+#: an arm of its own (``boosting|lgbm``), beside the family's free arm (sampler's choice).
+SUB_PARAM: dict[str, str] = {
+    "single": "single.learner",
+    "boosting": "boosting.kind",
+    "bagging": "bagging.kind",
+}
+SEP = "|"
 #: Share of the budget (time or trials, whichever is further) spent before composite trials
 #: that fit their own members may run (when the job also searches member families).
 COMPOSITE_AFTER = 0.5
@@ -41,6 +49,9 @@ COMPOSITE_MIN_MEMBERS = 4
 #: An untried composite is explored only if its estimated cost is at most this share of
 #: the search time left (a 50 s stack must not eat the last minute of a 2-minute job).
 COMPOSITE_MAX_SHARE = 0.34
+#: Share of the sampled trials that go to a member family's own arm (the sampler picks the
+#: learner: new learners get tried) once the family has learner arms of its own.
+EXPLORE_SHARE = 0.25
 #: Weight (in trials) of the spread of all trials in an arm's shrunk spread.
 PRIOR_TRIALS = 3.0
 #: Floor of the spread, relative to the best score's scale, so EI never collapses to 0.
@@ -69,22 +80,43 @@ class Arm:
     seconds: float
 
 
+def arm_keys(family: str, params: Mapping[str, Any]) -> list[str]:
+    """The arms a trial belongs to: its family's, and its learner's or kind's if it has one."""
+    keys = [family]
+    sub = SUB_PARAM.get(family)
+    if sub is not None and sub in params:
+        keys.append(f"{family}{SEP}{params[sub]}")
+    return keys
+
+
+def fixed_params(arm: str) -> dict[str, Any]:
+    """The parameters an arm fixes for the sampler (``{"family": ..., sub-param: ...}``)."""
+    family, _, sub = arm.partition(SEP)
+    out: dict[str, Any] = {"family": family}
+    if sub:
+        out[SUB_PARAM[family]] = sub
+    return out
+
+
 def arms_from_rows(rows: Iterable[Mapping[str, Any]]) -> dict[str, Arm]:
-    """Arms from the job's trial rows (failed rows are ignored: their retry is queued)."""
+    """Arms from the job's trial rows (failed rows are ignored: their retry is queued).
+
+    Keys are family names (every trial of the family) and ``family|learner`` for the
+    learners or kinds of member families (see ``SUB_PARAM``).
+    """
     scores: dict[str, list[float]] = {}
     secs: dict[str, list[float]] = {}
     for r in rows:
         state = r.get("state")
         if state not in ("complete", "pruned"):
             continue
-        fam = str(r.get("family", "unknown"))
-        secs.setdefault(fam, []).append(float(r.get("seconds") or 0.0))
-        scores.setdefault(fam, [])
-        if state == "complete" and r.get("score") is not None:
-            score = float(r["score"])
-            if math.isfinite(score):
-                scores[fam].append(score)
-    return {fam: Arm(fam, len(secs[fam]), tuple(scores[fam]), _median(secs[fam])) for fam in secs}
+        score = float(r["score"]) if state == "complete" and r.get("score") is not None else None
+        for key in arm_keys(str(r.get("family", "unknown")), r.get("params") or {}):
+            secs.setdefault(key, []).append(float(r.get("seconds") or 0.0))
+            scores.setdefault(key, [])
+            if score is not None and math.isfinite(score):
+                scores[key].append(score)
+    return {k: Arm(k, len(secs[k]), tuple(scores[k]), _median(secs[k])) for k in secs}
 
 
 def _median(values: Sequence[float]) -> float:
@@ -142,6 +174,8 @@ def estimated_seconds(family: str, fctx: FamilyContext, arms: Mapping[str, Arm])
     """
     per_unit = []
     for arm in arms.values():
+        if SEP in arm.family:
+            continue
         units = _default_cost(arm.family, fctx)
         if arm.n and units > 0:
             per_unit.append(arm.seconds / units)
@@ -176,13 +210,21 @@ def eligible(
     return out
 
 
-def choose_family(
+def choose_arm(
     families: Sequence[str],
     rows: Iterable[Mapping[str, Any]],
     budget: Budget,
     fctx: FamilyContext,
 ) -> str:
-    """The family of the next sampled trial: untried first (cheapest), then most gain/s.
+    """The arm of the next sampled trial: an untried family first (cheapest), then the arm
+    with the most expected gain per second.
+
+    Arms are families (the sampler picks the learner or kind) and, for member families, each
+    learner or kind already tried (``family|learner``: the sampler tunes only that one), so
+    a learner that leads, e.g. LightGBM, gets tuned on its own. A member family's own arm
+    mixes its learners, so its spread (and expected improvement) is inflated by the gaps
+    between them: it competes only among the exploring arms, which get ``EXPLORE_SHARE``
+    of the sampled trials (rows record the ``arm`` they were sampled for).
 
     Args:
         families: the job's families that support its task, in the spec's order.
@@ -195,12 +237,34 @@ def choose_family(
     untried = [f for f in pool if f not in arms]
     if untried:
         return min(untried, key=lambda f: (estimated_seconds(f, fctx, arms), pool.index(f)))
-    everything = [s for a in arms.values() for s in a.scores]
+    subs = sorted(k for k in arms if SEP in k and k.partition(SEP)[0] in pool)
+    explore = [f for f in pool if any(k.partition(SEP)[0] == f for k in subs)]
+    pool = [f for f in pool if f not in explore] + subs
+    everything = [s for f in families if f in arms for s in arms[f].scores]
     if not everything:  # nothing complete yet: the cheapest arm
         return min(pool, key=lambda f: (arms[f].seconds, pool.index(f)))
+    if explore and _explore_turn(rows, explore):
+        pool = explore
     best = max(everything)
     spread = _std(everything)
     return max(pool, key=lambda f: (gain_per_second(arms[f], best, spread), -pool.index(f)))
+
+
+def _explore_turn(rows: Iterable[Mapping[str, Any]], explore: Sequence[str]) -> bool:
+    """True when exploring arms got less than ``EXPLORE_SHARE`` of the sampled trials."""
+    sampled = [str(r["arm"]) for r in rows if r.get("arm")]
+    explored = sum(a in explore for a in sampled)
+    return explored < EXPLORE_SHARE * len(sampled)
+
+
+def choose_family(
+    families: Sequence[str],
+    rows: Iterable[Mapping[str, Any]],
+    budget: Budget,
+    fctx: FamilyContext,
+) -> str:
+    """The family of :func:`choose_arm`'s arm."""
+    return choose_arm(families, rows, budget, fctx).partition(SEP)[0]
 
 
 # --------------------------------------------------------------------------- the portfolio

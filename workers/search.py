@@ -33,7 +33,7 @@ from tuttiml.workers.families._base import FamilyContext
 from tuttiml.workers.finalize import refit_seconds
 from tuttiml.workers.journal import journal_storage
 from tuttiml.workers.oof import oof_bytes
-from tuttiml.workers.schedule import Budget, choose_family, portfolio_trials
+from tuttiml.workers.schedule import Budget, choose_arm, fixed_params, portfolio_trials
 
 log = logging.getLogger(__name__)
 optuna.logging.set_verbosity(optuna.logging.WARNING)
@@ -99,11 +99,13 @@ def make_sampler(seed: int) -> optuna.samplers.BaseSampler:
         )
 
 
-def with_family(sampler: optuna.samplers.BaseSampler, family: str) -> optuna.samplers.BaseSampler:
-    """``sampler`` with the ``family`` parameter fixed (enqueued trials keep their own)."""
+def with_fixed(
+    sampler: optuna.samplers.BaseSampler, fixed: dict[str, Any]
+) -> optuna.samplers.BaseSampler:
+    """``sampler`` with the family (and maybe its learner) fixed; enqueued trials keep theirs."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
-        return optuna.samplers.PartialFixedSampler({"family": family}, sampler)
+        return optuna.samplers.PartialFixedSampler(fixed, sampler)
 
 
 def open_study(ctx: WorkerContext, job_id: str, seed: int) -> optuna.Study:
@@ -309,10 +311,10 @@ class Shard:
         left = self.deadlines.search - now if np.isfinite(self.deadlines.search) else 1e9
         return Budget(spent=min(max(by_time, by_trials), 1.0), seconds_left=max(left, 0.0))
 
-    def next_family(self) -> str:
-        """The family of the next sampled trial (``workers.schedule``: gain per second)."""
+    def next_arm(self) -> str:
+        """The arm of the next sampled trial (``workers.schedule``: gain per second)."""
         rows = self.store.trial_rows(self.job_id)
-        return choose_family(self.families(), rows, self.budget(), self.fctx)
+        return choose_arm(self.families(), rows, self.budget(), self.fctx)
 
     def _prepare(self) -> None:
         """Have the trial process load the table now, so the first trial is not slower."""
@@ -355,10 +357,12 @@ class Shard:
     def run_trial(self, study: optuna.Study) -> None:
         busy0 = _busy_seconds(study)
         a0 = time.perf_counter()
+        arm = None
         try:
-            family = self.next_family()
-            self._seed_family(study, family)
-            study.sampler = with_family(self._sampler, family)
+            arm = self.next_arm()
+            fixed = fixed_params(arm)
+            self._seed_family(study, fixed["family"])
+            study.sampler = with_fixed(self._sampler, fixed)
         except Exception as exc:  # the schedule must never stop the search
             self.log(f"schedule fell back to the sampler: {type(exc).__name__}: {exc}")
             study.sampler = self._sampler
@@ -371,6 +375,8 @@ class Shard:
             "worker": self.ctx.name,
             "started_at": t0,
         }
+        if arm is not None and "fixed_params" not in trial.system_attrs:
+            row["arm"] = arm  # sampled for this arm (enqueued trials bring their own params)
         try:
             family = str(trial.suggest_categorical("family", self.families()))
             params = get_family(family).suggest(trial, self.fctx)

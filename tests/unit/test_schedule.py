@@ -15,9 +15,11 @@ from tuttiml.workers.schedule import (
     MEMBER_FAMILIES,
     Budget,
     arms_from_rows,
+    choose_arm,
     choose_family,
     default_trials,
     expected_improvement,
+    fixed_params,
     gain_per_second,
     portfolio_trials,
 )
@@ -150,3 +152,28 @@ def test_a_broken_portfolio_falls_back_to_the_defaults_and_says_so(
     start = portfolio_trials(ALL, CTX, on_error=said.append)
     assert start == default_trials(("single", "bagging", "boosting"), CTX)
     assert len(said) == 1 and "portfolio.json: unreadable" in said[0]
+
+
+def test_a_leading_learner_is_tuned_on_its_own() -> None:
+    def rows(learner: str, scores: list[float], seconds: float) -> list[dict[str, Any]]:
+        out = _rows("single", list(scores), seconds)
+        for r in out:
+            r["params"] = {"single.learner": learner}
+        return out
+
+    history = rows("lgbm", [0.90, 0.91, 0.92], 1.0) + rows("knn", [0.70, 0.72, 0.71], 0.5)
+    history += _rows("boosting", [0.85, 0.86], 1.5)
+    arms = arms_from_rows(history)
+    assert arms["single"].n == 6 and arms["single|lgbm"].n == 3
+    arm = choose_arm(("single", "boosting"), history, EARLY, CTX)
+    assert arm == "single|lgbm"
+    # the family's own arm (the sampler picks a learner: new ones get tried) has its share
+    sampled = [dict(r, arm="single|lgbm") for r in rows("lgbm", [0.915] * 3, 1.0)]
+    assert choose_arm(("single", "boosting"), history + sampled[:1], EARLY, CTX) == "single"
+    assert choose_arm(("single", "boosting"), history + sampled, EARLY, CTX) == "single"
+    explored = [dict(r, arm="single") for r in rows("knn", [0.7], 0.5)]
+    assert choose_arm(("single", "boosting"), history + sampled + explored, EARLY, CTX) == (
+        "single|lgbm"
+    )
+    assert fixed_params(arm) == {"family": "single", "single.learner": "lgbm"}
+    assert fixed_params("boosting") == {"family": "boosting"}
