@@ -375,7 +375,8 @@ class Shard:
             "worker": self.ctx.name,
             "started_at": t0,
         }
-        if arm is not None and "fixed_params" not in trial.system_attrs:
+        enqueued = trial.user_attrs.get("default") or "retries" in trial.user_attrs
+        if arm is not None and not enqueued:
             row["arm"] = arm  # sampled for this arm (enqueued trials bring their own params)
         try:
             family = str(trial.suggest_categorical("family", self.families()))
