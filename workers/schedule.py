@@ -72,12 +72,19 @@ class Arm:
         n: finished trials (complete or pruned).
         scores: scores of complete trials (greater is better).
         seconds: median wall seconds of a finished trial (0 when ``n == 0``).
+        units: median estimated cost of a finished trial in the families' cost units (one
+            default LightGBM fit, see ``BaseFamily.cost``; rows carry it as ``cost``).
     """
 
     family: str
     n: int
     scores: tuple[float, ...]
     seconds: float
+    units: float = 1.0
+
+    def cost(self, measured: bool) -> float:
+        """Seconds per trial, or cost units when the schedule must not depend on timing."""
+        return self.seconds if measured else self.units
 
 
 def arm_keys(family: str, params: Mapping[str, Any]) -> list[str]:
@@ -106,6 +113,7 @@ def arms_from_rows(rows: Iterable[Mapping[str, Any]]) -> dict[str, Arm]:
     """
     scores: dict[str, list[float]] = {}
     secs: dict[str, list[float]] = {}
+    units: dict[str, list[float]] = {}
     for r in rows:
         state = r.get("state")
         if state not in ("complete", "pruned"):
@@ -113,10 +121,14 @@ def arms_from_rows(rows: Iterable[Mapping[str, Any]]) -> dict[str, Arm]:
         score = float(r["score"]) if state == "complete" and r.get("score") is not None else None
         for key in arm_keys(str(r.get("family", "unknown")), r.get("params") or {}):
             secs.setdefault(key, []).append(float(r.get("seconds") or 0.0))
+            units.setdefault(key, []).append(float(r.get("cost") or 1.0))
             scores.setdefault(key, [])
             if score is not None and math.isfinite(score):
                 scores[key].append(score)
-    return {k: Arm(k, len(secs[k]), tuple(scores[k]), _median(secs[k])) for k in secs}
+    return {
+        k: Arm(k, len(secs[k]), tuple(scores[k]), _median(secs[k]), _median(units[k]))
+        for k in secs
+    }
 
 
 def _median(values: Sequence[float]) -> float:
@@ -144,8 +156,11 @@ def expected_improvement(mean: float, spread: float, best: float) -> float:
     return spread * (z * cdf + pdf)
 
 
-def gain_per_second(arm: Arm, best: float, global_spread: float) -> float:
-    """Expected improvement of the arm's next trial over ``best``, per second it costs."""
+def gain_per_second(
+    arm: Arm, best: float, global_spread: float, *, measured: bool = True
+) -> float:
+    """Expected improvement of the arm's next trial over ``best``, per second it costs
+    (per cost unit with ``measured=False``)."""
     if not arm.scores:  # only pruned trials: it never beat the median so far
         return 0.0
     top = sorted(arm.scores, reverse=True)[: max(1, (len(arm.scores) + 1) // 2)]
@@ -155,7 +170,7 @@ def gain_per_second(arm: Arm, best: float, global_spread: float) -> float:
     spread = math.sqrt(
         (k * _std(arm.scores) ** 2 + PRIOR_TRIALS * global_spread**2) / (k + PRIOR_TRIALS)
     )
-    return expected_improvement(mean, max(spread, floor), best) / max(arm.seconds, 0.05)
+    return expected_improvement(mean, max(spread, floor), best) / max(arm.cost(measured), 0.05)
 
 
 @dataclass(frozen=True)
@@ -215,6 +230,8 @@ def choose_arm(
     rows: Iterable[Mapping[str, Any]],
     budget: Budget,
     fctx: FamilyContext,
+    *,
+    measured: bool = True,
 ) -> str:
     """The arm of the next sampled trial: an untried family first (cheapest), then the arm
     with the most expected gain per second.
@@ -231,6 +248,9 @@ def choose_arm(
         rows: the job's trial rows so far (any state).
         budget: how much of the budget is spent and the search seconds left.
         fctx: the family context (for cost estimates of untried families).
+        measured: rank by measured seconds; ``False`` ranks by the families' cost estimates
+            instead, so that a job run by one shard does not depend on timing (a run with one
+            worker and a trial budget is reproducible).
     """
     arms = arms_from_rows(rows)
     pool = eligible(families, arms, budget, fctx)
@@ -242,12 +262,15 @@ def choose_arm(
     pool = [f for f in pool if f not in explore] + subs
     everything = [s for f in families if f in arms for s in arms[f].scores]
     if not everything:  # nothing complete yet: the cheapest arm
-        return min(pool, key=lambda f: (arms[f].seconds, pool.index(f)))
+        return min(pool, key=lambda f: (arms[f].cost(measured), pool.index(f)))
     if explore and _explore_turn(rows, explore):
         pool = explore
     best = max(everything)
     spread = _std(everything)
-    return max(pool, key=lambda f: (gain_per_second(arms[f], best, spread), -pool.index(f)))
+    return max(
+        pool,
+        key=lambda f: (gain_per_second(arms[f], best, spread, measured=measured), -pool.index(f)),
+    )
 
 
 def _explore_turn(rows: Iterable[Mapping[str, Any]], explore: Sequence[str]) -> bool:
@@ -262,9 +285,11 @@ def choose_family(
     rows: Iterable[Mapping[str, Any]],
     budget: Budget,
     fctx: FamilyContext,
+    *,
+    measured: bool = True,
 ) -> str:
     """The family of :func:`choose_arm`'s arm."""
-    return choose_arm(families, rows, budget, fctx).partition(SEP)[0]
+    return choose_arm(families, rows, budget, fctx, measured=measured).partition(SEP)[0]
 
 
 # --------------------------------------------------------------------------- the portfolio

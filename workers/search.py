@@ -314,7 +314,10 @@ class Shard:
     def next_arm(self) -> str:
         """The arm of the next sampled trial (``workers.schedule``: gain per second)."""
         rows = self.store.trial_rows(self.job_id)
-        return choose_arm(self.families(), rows, self.budget(), self.fctx)
+        # one shard: rank by the families' cost estimates, so that timing cannot change
+        # which trials run (README, Reproducibility); several: by measured seconds
+        measured = self.spec.parallelism > 1
+        return choose_arm(self.families(), rows, self.budget(), self.fctx, measured=measured)
 
     def _prepare(self) -> None:
         """Have the trial process load the table now, so the first trial is not slower."""
@@ -395,6 +398,8 @@ class Shard:
             )
             return
         row.update(family=family, params=params, ask_seconds=time.perf_counter() - a0)
+        with contextlib.suppress(Exception):  # cost units for the schedule (workers.schedule)
+            row["cost"] = float(get_family(family).cost(params, self.fctx))
         self.ctx.doing.update(
             job=self.job_id, shard=self.shard, trial=trial.number, family=family, since=time.time()
         )

@@ -176,3 +176,20 @@ def test_a_leading_learner_is_tuned_on_its_own() -> None:
     )
     assert fixed_params(arm) == {"family": "single", "single.learner": "lgbm"}
     assert fixed_params("boosting") == {"family": "boosting"}
+
+
+def test_without_measured_seconds_the_choice_does_not_depend_on_timing() -> None:
+    """One shard ranks by the families' cost estimates (rows' ``cost``), so two runs of the
+    same job pick the same arms however long their trials took."""
+    fast = _rows("single", [0.80, 0.82, 0.81], 1.0)
+    slow = _rows("boosting", [0.80, 0.82, 0.81], 10.0)
+    for r in fast:
+        r["cost"] = 10.0
+    for r in slow:
+        r["cost"] = 1.2
+    families = ("single", "boosting")
+    assert choose_family(families, fast + slow, EARLY, CTX) == "single"
+    assert choose_family(families, fast + slow, EARLY, CTX, measured=False) == "boosting"
+    for r in fast + slow:  # other timings, same choice
+        r["seconds"] *= 7.0 if r["family"] == "single" else 0.1
+    assert choose_family(families, fast + slow, EARLY, CTX, measured=False) == "boosting"
