@@ -8,12 +8,13 @@ out-of-fold predictions (``workers.composites``), so composite *trials* get budg
 when their expected gain per second competes.
 
 Each family is an arm. From its finished trials (complete and pruned: pruned trials cost
-time too) the arm gets a cost (median seconds per trial) and a score model: a normal
+time too) the arm gets a cost (mean seconds per trial) and a score model: a normal
 distribution whose mean is the mean of the arm's better half of scores (where its sampler
 now concentrates) and whose spread is the arm's standard deviation shrunk towards the
 spread of every trial. The expected improvement over the best score so far (Jones, Schonlau
 and Welch, "Efficient Global Optimization of Expensive Black-Box Functions", 1998) divided
-by the cost is the arm's expected gain per second; the arm with the most runs next. An arm
+by the cost, and weighted by the arm's chance that a trial completes (pruned trials gain
+nothing), is the arm's expected gain per second; the arm with the most runs next. An arm
 not yet tried is explored first (cheapest estimated cost first), so every eligible family
 gets at least one trial.
 
@@ -71,8 +72,8 @@ class Arm:
         family: family name.
         n: finished trials (complete or pruned).
         scores: scores of complete trials (greater is better).
-        seconds: median wall seconds of a finished trial (0 when ``n == 0``).
-        units: median estimated cost of a finished trial in the families' cost units (one
+        seconds: mean wall seconds of a finished trial (0 when ``n == 0``).
+        units: mean estimated cost of a finished trial in the families' cost units (one
             default LightGBM fit, see ``BaseFamily.cost``; rows carry it as ``cost``).
     """
 
@@ -126,9 +127,12 @@ def arms_from_rows(rows: Iterable[Mapping[str, Any]]) -> dict[str, Arm]:
             if score is not None and math.isfinite(score):
                 scores[key].append(score)
     return {
-        k: Arm(k, len(secs[k]), tuple(scores[k]), _median(secs[k]), _median(units[k]))
-        for k in secs
+        k: Arm(k, len(secs[k]), tuple(scores[k]), _mean(secs[k]), _mean(units[k])) for k in secs
     }
+
+
+def _mean(values: Sequence[float]) -> float:
+    return sum(values) / len(values) if values else 0.0
 
 
 def _median(values: Sequence[float]) -> float:
@@ -160,7 +164,12 @@ def gain_per_second(
     arm: Arm, best: float, global_spread: float, *, measured: bool = True
 ) -> float:
     """Expected improvement of the arm's next trial over ``best``, per second it costs
-    (per cost unit with ``measured=False``)."""
+    (per cost unit with ``measured=False``).
+
+    A pruned trial improves nothing, so the improvement of a complete one is weighted by the
+    arm's chance to complete, ``(complete + 1) / (finished + 2)``: an arm whose trials are
+    cheap because they get pruned does not look cheap per unit of gain.
+    """
     if not arm.scores:  # only pruned trials: it never beat the median so far
         return 0.0
     top = sorted(arm.scores, reverse=True)[: max(1, (len(arm.scores) + 1) // 2)]
@@ -170,7 +179,9 @@ def gain_per_second(
     spread = math.sqrt(
         (k * _std(arm.scores) ** 2 + PRIOR_TRIALS * global_spread**2) / (k + PRIOR_TRIALS)
     )
-    return expected_improvement(mean, max(spread, floor), best) / max(arm.cost(measured), 0.05)
+    completes = (k + 1) / (arm.n + 2)
+    gain = completes * expected_improvement(mean, max(spread, floor), best)
+    return gain / max(arm.cost(measured), 0.05)
 
 
 @dataclass(frozen=True)

@@ -193,3 +193,16 @@ def test_without_measured_seconds_the_choice_does_not_depend_on_timing() -> None
     for r in fast + slow:  # other timings, same choice
         r["seconds"] *= 7.0 if r["family"] == "single" else 0.1
     assert choose_family(families, fast + slow, EARLY, CTX, measured=False) == "boosting"
+
+
+def test_an_arm_cheap_only_because_it_is_pruned_does_not_look_cheap() -> None:
+    """Mostly pruned trials cost little but gain nothing: the arm's gain is weighted by its
+    chance to complete."""
+    pruned_often = _rows("single", [0.80, 0.82, 0.81], 3.0) + _rows("single", [None] * 12, 0.5)
+    completes = _rows("boosting", [0.80, 0.82, 0.81], 2.0)
+    assert choose_family(("single", "boosting"), pruned_often + completes, EARLY, CTX) == (
+        "boosting"
+    )
+    arms = arms_from_rows(pruned_often)
+    assert arms["single"].n == 15 and len(arms["single"].scores) == 3
+    assert arms["single"].seconds == pytest.approx((3 * 3.0 + 12 * 0.5) / 15)  # the mean
