@@ -295,7 +295,7 @@ class Shard:
 
     def _seed_family(self, study: optuna.Study, family: str) -> None:
         """The first trial of a family the portfolio left out is its cheapest default."""
-        if not self.store.r.hsetnx(self.store.keys.job(self.job_id), f"seeded:{family}", 1):
+        if not self.store.claim_field(self.job_id, f"seeded:{family}"):
             return
         fam = get_family(family)
         defaults = sorted(fam.defaults(self.fctx), key=lambda p: fam.cost(p, self.fctx))

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import json
 import threading
-import time
 
 import pytest
 from tuttiml.service.connection import connect
@@ -147,20 +146,3 @@ def test_reader_offers_no_writes(redis_url: str, prefix: str) -> None:
     reader = JobReader(connect(redis_url), Keys(prefix))
     public = {n for n in dir(reader) if not n.startswith("_")}
     assert public == {"job", "get_data", "oof", "library_members"}
-
-
-def test_a_claim_has_one_holder_expires_and_is_released_only_by_its_holder(
-    store: JobStore,
-) -> None:
-    job = _job(store)
-    assert store.claim(job, "library", "w1", 30.0)
-    assert not store.claim(job, "library", "w2", 30.0)  # held: one refresher at a time
-    assert store.claim(job, "other", "w2", 30.0)  # another chore is independent
-    store.release(job, "library", "w2")  # not the holder: nothing changes
-    assert not store.claim(job, "library", "w2", 30.0)
-    store.release(job, "library", "w1")
-    assert store.claim(job, "library", "w2", 0.2)
-    deadline = time.time() + 5
-    while not store.claim(job, "library", "w3", 30.0):  # a dead holder's claim lapses
-        assert time.time() < deadline
-        time.sleep(0.05)
