@@ -110,6 +110,10 @@ class Keys:
         """Out-of-fold predictions of a trial (``.npy`` bytes, no pickle)."""
         return f"{self.prefix}:job:{job_id}:oof:{trial}"
 
+    def lock(self, job_id: str, name: str) -> str:
+        """Short-lived claim on one job-wide chore (e.g. ``library``: one refresher at a time)."""
+        return f"{self.prefix}:job:{job_id}:lock:{name}"
+
     def trial_lease(self, job_id: str, trial_id: int) -> str:
         return f"{self.prefix}:job:{job_id}:lease:{trial_id}"
 

@@ -492,6 +492,25 @@ class JobStore:
                     out[int(t)] = blob
         return out
 
+    def claim(self, job_id: str, name: str, owner: str, seconds: float) -> bool:
+        """Claim the job-wide chore ``name`` for ``seconds`` (False: someone else holds it)."""
+        key = self.keys.lock(job_id, name)
+        return bool(self._r.set(key, owner, nx=True, px=max(int(seconds * 1000), 1)))
+
+    def release(self, job_id: str, name: str, owner: str) -> None:
+        """Give a claim back, only if ``owner`` still holds it."""
+        key = self.keys.lock(job_id, name)
+        with self._r.pipeline(transaction=True) as pipe:
+            try:
+                pipe.watch(key)
+                if _text(pipe.get(key) or b"") != owner:
+                    return
+                pipe.multi()
+                pipe.delete(key)
+                pipe.execute()
+            except redis.WatchError:
+                return
+
     # ------------------------------------------------------------------ artifacts, extras
     def put_artifact(self, job_id: str, name: str, blob: bytes, meta: dict[str, Any]) -> None:
         pipe = self._r.pipeline(transaction=True)

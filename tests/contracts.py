@@ -234,6 +234,20 @@ class StoreContract:
         assert store.incr_field(job, "n") == 1
         assert store.incr_field(job, "n", 4) == 5
 
+    def test_a_claim_has_one_holder_lapses_and_is_released_by_its_holder(self, store: Any) -> None:
+        job = self._job(store)
+        assert store.claim(job, "library", "w1", 30.0)
+        assert not store.claim(job, "library", "w2", 30.0)  # held: one refresher at a time
+        assert store.claim(job, "other", "w2", 30.0)  # another chore is independent
+        store.release(job, "library", "w2")  # not the holder: nothing changes
+        assert not store.claim(job, "library", "w2", 30.0)
+        store.release(job, "library", "w1")
+        assert store.claim(job, "library", "w2", 0.2)
+        deadline = time.time() + 5
+        while not store.claim(job, "library", "w3", 30.0):  # a dead holder's claim lapses
+            assert time.time() < deadline
+            time.sleep(0.05)
+
     def test_leases_expire_and_drop(self, store: Any) -> None:
         job = self._job(store)
         key = store.keys.trial_lease(job, 7)

@@ -14,7 +14,6 @@ import logging
 import threading
 import time
 import warnings
-from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -26,6 +25,7 @@ from tuttiml.service.spec import SearchSpec
 from tuttiml.service.store import JobState
 from tuttiml.workers.candidates import CALIBRATED_METRICS, calibrations
 from tuttiml.workers.child import ChildFailure, TrialCrashed
+from tuttiml.workers.composites import LibraryRefresher
 from tuttiml.workers.context import WorkerContext
 from tuttiml.workers.datasets import family_context
 from tuttiml.workers.families import get_family
@@ -33,6 +33,7 @@ from tuttiml.workers.families._base import FamilyContext
 from tuttiml.workers.finalize import refit_seconds
 from tuttiml.workers.journal import journal_storage
 from tuttiml.workers.oof import oof_bytes
+from tuttiml.workers.schedule import Budget, choose_arm, fixed_params, portfolio_trials
 
 log = logging.getLogger(__name__)
 optuna.logging.set_verbosity(optuna.logging.WARNING)
@@ -47,6 +48,8 @@ LEAKAGE_TIMEOUT = 120.0  # at least this long for the leakage checks before the 
 REFIT_ESTIMATE_TOP = 5
 REFIT_SAFETY = 2.0
 REFIT_ESTIMATE_EVERY = 5.0
+#: Library composites are refreshed only while this many seconds of search time remain.
+REFRESH_MARGIN = 5.0
 
 
 def derive_seed(*parts: int) -> int:
@@ -73,24 +76,6 @@ def context_from_record(record: dict[str, Any], seed: int) -> FamilyContext:
     )
 
 
-def default_trials(
-    families: Sequence[str], fctx: FamilyContext
-) -> list[tuple[str, dict[str, Any]]]:
-    """Every family's default configurations, cheapest first (stable among equal costs).
-
-    Cheap defaults first means a short job still scores several families, and the trial
-    library holds diverse members before the expensive composites (a default stack costs
-    about 60 LightGBM fits) take their turn.
-    """
-    out = []
-    for name in families:
-        fam = get_family(name)
-        if fctx.task in fam.tasks:
-            out.extend((fam.cost(p, fctx), name, p) for p in fam.defaults(fctx))
-    out.sort(key=lambda item: item[0])
-    return [(name, params) for _, name, params in out]
-
-
 def _busy_seconds(study: optuna.Study) -> float:
     """Seconds the study's journal backend has spent talking to Redis (store cost figures)."""
     return float(getattr(getattr(study._storage, "_backend", None), "busy_seconds", 0.0))
@@ -105,14 +90,28 @@ def make_pruner() -> optuna.pruners.BasePruner:
     return optuna.pruners.MedianPruner(n_startup_trials=5, n_warmup_steps=0)
 
 
+def make_sampler(seed: int) -> optuna.samplers.BaseSampler:
+    """Multivariate TPE over each family's own parameters (the shard picks the family)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
+        return optuna.samplers.TPESampler(
+            seed=seed, multivariate=True, group=True, n_startup_trials=10
+        )
+
+
+def with_fixed(
+    sampler: optuna.samplers.BaseSampler, fixed: dict[str, Any]
+) -> optuna.samplers.BaseSampler:
+    """``sampler`` with the family (and maybe its learner) fixed; enqueued trials keep theirs."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
+        return optuna.samplers.PartialFixedSampler(fixed, sampler)
+
+
 def open_study(ctx: WorkerContext, job_id: str, seed: int) -> optuna.Study:
     """Create or load the job's study on the Redis journal, with a shard-specific sampler."""
     storage = journal_storage(ctx.store.journal(job_id))
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", optuna.exceptions.ExperimentalWarning)
-        sampler = optuna.samplers.TPESampler(
-            seed=seed, multivariate=True, group=True, n_startup_trials=10
-        )
+    sampler = make_sampler(seed)
     return optuna.create_study(
         study_name=job_id,
         storage=storage,
@@ -193,9 +192,17 @@ class Shard:
         seed = derive_seed(self.spec.seed, self.shard, n_slice)
         self.fctx = context_from_record(self.record, self.spec.seed)
         study = open_study(self.ctx, self.job_id, seed)
-        self._enqueue_defaults(study)
+        self._sampler = study.sampler
+        self._enqueue_portfolio(study)
         self._prepare()
         self._check_leakage()
+        self.refresher = LibraryRefresher(
+            self.ctx,
+            self.job_id,
+            self.spec.family_names,
+            library_size=self.spec.library_size,
+            log_line=self.log,
+        )
         slice_end = time.monotonic() + self.ctx.settings.shard_seconds
         reason = ""
         while not reason:
@@ -211,6 +218,8 @@ class Shard:
             self.reap(study)
             self.run_trial(study)
             self.ctx.doing.update(trial=None, family=None)
+            if time.time() + REFRESH_MARGIN < self.deadlines.search:
+                self.refresher.maybe_refresh()
         self.ctx.doing.clear()
         self.hand_over(reason)
         return reason
@@ -274,11 +283,41 @@ class Shard:
             self.store.log(self.job_id, f"[{self.ctx.name}] {line}")
 
     # ----------------------------------------------------------------- trials
-    def _enqueue_defaults(self, study: optuna.Study) -> None:
+    def _enqueue_portfolio(self, study: optuna.Study) -> None:
+        """Once per job: the portfolio's configurations, in order, before the sampler."""
         if not self.store.claim_field(self.job_id, "defaults_enqueued"):
             return
-        for name, params in default_trials(self.spec.family_names, self.fctx):
+        start = portfolio_trials(self.families(), self.fctx, on_error=self.log)
+        for name, params in start:
             study.enqueue_trial({"family": name, **params}, user_attrs={"default": True})
+        for name in {name for name, _ in start}:
+            self.store.set_fields(self.job_id, **{f"seeded:{name}": 1})
+
+    def _seed_family(self, study: optuna.Study, family: str) -> None:
+        """The first trial of a family the portfolio left out is its cheapest default."""
+        if not self.store.claim_field(self.job_id, f"seeded:{family}"):
+            return
+        fam = get_family(family)
+        defaults = sorted(fam.defaults(self.fctx), key=lambda p: fam.cost(p, self.fctx))
+        if defaults:
+            study.enqueue_trial({"family": family, **defaults[0]}, user_attrs={"default": True})
+
+    def budget(self) -> Budget:
+        """How much of the job's budget is spent (time or trials) and search seconds left."""
+        now = time.time()
+        span = self.deadlines.search - self.started
+        by_time = (now - self.started) / span if np.isfinite(span) and span > 0 else 0.0
+        by_trials = self.store.tickets(self.job_id) / max(self.spec.max_trials, 1)
+        left = self.deadlines.search - now if np.isfinite(self.deadlines.search) else 1e9
+        return Budget(spent=min(max(by_time, by_trials), 1.0), seconds_left=max(left, 0.0))
+
+    def next_arm(self) -> str:
+        """The arm of the next sampled trial (``workers.schedule``: gain per second)."""
+        rows = self.store.trial_rows(self.job_id)
+        # one shard: rank by the families' cost estimates, so that timing cannot change
+        # which trials run (README, Reproducibility); several: by measured seconds
+        measured = self.spec.parallelism > 1
+        return choose_arm(self.families(), rows, self.budget(), self.fctx, measured=measured)
 
     def _prepare(self) -> None:
         """Have the trial process load the table now, so the first trial is not slower."""
@@ -321,6 +360,15 @@ class Shard:
     def run_trial(self, study: optuna.Study) -> None:
         busy0 = _busy_seconds(study)
         a0 = time.perf_counter()
+        arm = None
+        try:
+            arm = self.next_arm()
+            fixed = fixed_params(arm)
+            self._seed_family(study, fixed["family"])
+            study.sampler = with_fixed(self._sampler, fixed)
+        except Exception as exc:  # the schedule must never stop the search
+            self.log(f"schedule fell back to the sampler: {type(exc).__name__}: {exc}")
+            study.sampler = self._sampler
         trial = study.ask()
         t0 = time.time()
         row: dict[str, Any] = {
@@ -330,6 +378,9 @@ class Shard:
             "worker": self.ctx.name,
             "started_at": t0,
         }
+        enqueued = trial.user_attrs.get("default") or "retries" in trial.user_attrs
+        if arm is not None and not enqueued:
+            row["arm"] = arm  # sampled for this arm (enqueued trials bring their own params)
         try:
             family = str(trial.suggest_categorical("family", self.families()))
             params = get_family(family).suggest(trial, self.fctx)
@@ -347,6 +398,8 @@ class Shard:
             )
             return
         row.update(family=family, params=params, ask_seconds=time.perf_counter() - a0)
+        with contextlib.suppress(Exception):  # cost units for the schedule (workers.schedule)
+            row["cost"] = float(get_family(family).cost(params, self.fctx))
         self.ctx.doing.update(
             job=self.job_id, shard=self.shard, trial=trial.number, family=family, since=time.time()
         )

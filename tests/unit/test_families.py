@@ -503,7 +503,7 @@ def test_default_trials_run_cheapest_first(task: str) -> None:
     """Every family's defaults are enqueued exactly once, ordered by estimated cost: the
     single learners before the composites, and the stack (inner CV: cv + 1 fits of each
     member) last."""
-    from tuttiml.workers.search import default_trials
+    from tuttiml.workers.schedule import default_trials
 
     _, _, ctx = family_data(task)
     order = default_trials(KNOWN_FAMILIES, ctx)

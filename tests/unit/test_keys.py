@@ -14,6 +14,7 @@ def test_key_schema_is_pinned() -> None:
     assert k.board("a1") == "tt:job:a1:board"
     assert k.oof("a1", 3) == "tt:job:a1:oof:3"
     assert k.journal("a1") == "tt:job:a1:journal"
+    assert k.lock("a1", "library") == "tt:job:a1:lock:library"
     assert k.data_chunk("d", 0) == "tt:data:d:chunk:0"
     assert k.queue_name == "tt-search"
 
@@ -32,6 +33,8 @@ def test_builders_never_collide(a: str, b: str, i: int, j: int) -> None:
         ("lease", a, i): k.trial_lease(a, i),
         ("journal", a): k.journal(a),
         ("tickets", a): k.tickets(a),
+        ("lock", a): k.lock(a, "library"),
+        ("library", a): k.library(a, "lock"),
     }
     other = {
         ("job", b): k.job(b),
@@ -41,6 +44,8 @@ def test_builders_never_collide(a: str, b: str, i: int, j: int) -> None:
         ("lease", b, j): k.trial_lease(b, j),
         ("journal", b): k.journal(b),
         ("tickets", b): k.tickets(b),
+        ("lock", b): k.lock(b, "library"),
+        ("library", b): k.library(b, "lock"),
     }
     for key1, v1 in built.items():
         for key2, v2 in other.items():
