@@ -182,6 +182,10 @@ class Explainer:
         if not rows and name in NEED_A_RESULT:
             self.not_run(doc, name, f"no candidate finished within its {inner:.0f} s")
             return []
+        if name == "significance" and len(rows) < 2:  # #1 alone: no test was made
+            why = "only #1 finished in time" if len(common["top"]) > 1 else "only one candidate"
+            self.not_run(doc, name, f"{why}, nothing to compare with")
+            return []
         doc["parts"][name] = {
             "status": PartStatus.DONE.value,
             "seconds": round(time.monotonic() - t, 3),

@@ -100,12 +100,18 @@ def test_model_is_readable_while_explanations_are_pending_then_they_finish(
     rec = job.record()
     assert done["explanations"] == "done", (done, job.logs()[-20:])
     parts = done["explain_parts"]
-    assert parts["leakage"] == "done" and parts["significance"] == "done", parts
+    assert parts["leakage"] == "done", parts
     assert parts["bias_variance"].startswith("not run: stopped at its time limit"), parts
     # within their own budget after the commit (120 s), with a generous margin for a busy box
     assert rec["explained_at"] - rec["finalized_at"] < 120 + 60
     board = job.leaderboard()
-    assert "p_value" in board.columns and "bias" not in board.columns
+    # significance gets about 40 s: done with a comparison, or (a very busy box) not run
+    if parts["significance"] == "done":
+        assert "p_value" in board.columns
+    else:
+        assert parts["significance"].startswith("not run: "), parts
+        assert "p_value" not in board.columns
+    assert "bias" not in board.columns
     html = job.report(tmp_path / "report.html").read_text()
     assert "not run: stopped at its time limit" in html
     assert BV_NOT_RUN + "stopped at its time limit" in html  # never shown as passed
@@ -157,4 +163,4 @@ def test_explanations_lost_with_their_worker_are_run_again(
     assert any("sweep: re-enqueued the explanations" in line for line in job.logs())
     rec = job.record()
     assert rec["explain_attempts:0"] == "2"
-    assert st["explain_parts"]["significance"] == "done"
+    assert st["explain_parts"]["ensembles"] == "done"  # the part that was cut by the kill
