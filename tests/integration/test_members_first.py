@@ -55,13 +55,15 @@ def test_members_first_and_composites_on_the_board_mid_search(
     trials = job.trials().sort_values("number").reset_index(drop=True)
     done = trials[trials["state"].isin(["complete", "pruned"])]
 
-    # the portfolio (here the members' defaults) runs first, in its order
+    # the portfolio runs first, in its order (a loaded machine may end the job before the
+    # whole learned portfolio has run: then the trials that ran are its first entries)
     record = job.record()
     start = portfolio_trials(record["spec"].get("families") or list(_all()), _ctx(record))
     first = trials.head(len(start))
+    assert len(first) >= min(2, len(start)), trials[["number", "family", "state"]]
     assert [(r.family, r.params) for r in first.itertuples()] == [
         (name, params) for name, params in start
-    ]
+    ][: len(first)]
 
     # mostly members: composite trials only in the second half of the budget
     started = float(record["started_at"])
