@@ -115,6 +115,8 @@ class Finalizer:
             library = self.library_ensembles(board)
             self.phase("honest estimate of picking the best (BBC-CV)")
             selection = self.selection()  # else the explanations compute it, after the commit
+        else:  # no time to rebuild: the composites the search built (workers.composites)
+            library = self.search_library(board)
         for ens in library:  # what the best trial's CV score overstates (like with like)
             ens["trial_optimism"] = max(float(selection.get("optimism", 0.0)), 0.0)
         library_seconds = time.time() - t_lib
@@ -170,6 +172,19 @@ class Finalizer:
         if ok:  # a lost enqueue is found by the sweep (explanations pending, no task)
             self.ctx.queue.enqueue_explain(self.job_id, timeout=explain_timeout(budget, self.spec))
         return "committed" if ok else "duplicate"
+
+    def search_library(self, board: list[dict[str, Any]]) -> list[dict[str, Any]]:
+        """The library ensembles last built during the search, if all their members are on
+        the board (scored the same honest way; they may miss the last few trials)."""
+        numbers = {int(r["number"]) for r in board}
+        out = [
+            doc
+            for doc in self.store.extras(self.job_id).get("library") or []
+            if doc.get("during_search") and {int(m) for m in doc["members"]} <= numbers
+        ]
+        if out:
+            self.log(f"library ensembles from the search reused: {len(out)}")
+        return out
 
     def library_in_time(self, board: list[dict[str, Any]]) -> bool:
         """Whether the time left before the deadline covers library ensembles (about

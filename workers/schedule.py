@@ -335,7 +335,7 @@ def portfolio_trials(
 
 def _learned_portfolio(task: str, families: Sequence[str]) -> list[tuple[str, dict[str, Any]]]:
     try:
-        from tuttiml.workers.portfolio import portfolio_for  # type: ignore[import-not-found]
+        from tuttiml.workers.portfolio import portfolio_for
     except ImportError:  # not installed: the caller falls back to the defaults
         return []
     out = []
