@@ -32,7 +32,7 @@ def run_shard(job_id: str, shard: int) -> str:
     if not ctx.store.exists(job_id):
         return "no such job"  # deleted while queued, or forged: write nothing
     lease_key = ctx.store.keys.shard_lease(job_id, shard)
-    from tuttiml.workers.search import Lease
+    from tuttiml.workers.leases import Lease
 
     with Lease(ctx, lease_key, ctx.settings.lease_seconds):
         try:
@@ -61,20 +61,41 @@ def _shard_crashed(job_id: str, shard: int, exc: Exception) -> str:
 def finalize_job(job_id: str) -> str:
     """Build library ensembles, refit the winner and commit the job's result (exactly once)."""
     from tuttiml.workers.finalize import Finalizer
-    from tuttiml.workers.search import Lease
+    from tuttiml.workers.leases import Lease
 
     job_id = check_id(job_id)
     ctx = current()
     if not ctx.store.exists(job_id):
         return "no such job"
     with Lease(ctx, ctx.store.keys.shard_lease(job_id, -1), ctx.settings.lease_seconds):
+        _reap_before_finalize(job_id)
         return Finalizer(ctx, job_id).run()
+
+
+def _reap_before_finalize(job_id: str) -> None:
+    """Fail trials a dead worker left RUNNING, so none stays RUNNING past the search.
+
+    Shards reap such trials before they stop on a spent budget; this covers the other ways
+    to the end (deadline, cancel, failure cap, a sweep's finalize). Waits at most three lease
+    periods, since a lease must be seen lapsed for a whole period before its trial is failed.
+    """
+    from tuttiml.service.store import JobState
+    from tuttiml.workers.leases import Reaper
+    from tuttiml.workers.search import open_study
+
+    ctx = current()
+    if ctx.store.state(job_id) in (JobState.FINISHED, JobState.FAILED):
+        return
+    study = open_study(ctx, job_id, seed=0)
+    n = Reaper(ctx, job_id).drain(study, within=3 * ctx.settings.lease_seconds)
+    if n:
+        log.warning("job %s: finalize reaped %d trial(s) of dead workers", job_id, n)
 
 
 def explain_job(job_id: str) -> str:
     """Compute and commit the explanations of the job's committed epoch (exactly once)."""
     from tuttiml.workers.explain_task import Explainer
-    from tuttiml.workers.search import Lease
+    from tuttiml.workers.leases import Lease
     from tuttiml.workers.sweep import EXPLAIN_SHARD
 
     job_id = check_id(job_id)
