@@ -3,8 +3,9 @@
 It starts ``--processes`` worker processes, each an RQ worker (JSON serializer, allow-listed
 tasks) that runs search slices and finalize tasks and owns one supervised trial child. Heavy
 modules are imported in each worker before it takes work; every process that fits runs with
-``threads`` threads (``processes × threads ≤ cores``). A SIGTERM asks every worker to finish
-or fail its current trial and exit; if the launcher dies, its workers and their trial
+``threads`` threads (``processes × threads ≤ cores``). A SIGTERM asks every worker to stop its
+current trial at the end of a fold (failed and retried) and exit, within bounded time whatever
+state Redis is in (``workers.shutdown``); if the launcher dies, its workers and their trial
 children die with it.
 """
 
@@ -42,13 +43,15 @@ class WorkerOptions:
 
 
 def _make_worker_class() -> type:
-    from rq.worker import SimpleWorker
+    from rq.exceptions import StopRequested
+    from rq.utils import now
+    from rq.worker import SimpleWorker, WorkerStatus
     from tuttiml.service.queue import ALLOWED_TASKS
 
     class TuttiWorker(SimpleWorker):
         """RQ's in-process worker that runs only our allow-listed task functions."""
 
-        stop_event: threading.Event | None = None
+        shutdown: Any = None  # workers.shutdown.Shutdown, set by worker_main
 
         def perform_job(self, job: Any, queue: Any, execution: Any) -> bool:
             try:
@@ -65,12 +68,24 @@ def _make_worker_class() -> type:
                     self._finalize_failure(job, queue, execution, sys.exc_info())
                 log.error("refused forged or foreign task %r (job %s)", name, job.id)
                 return False
-            return bool(super().perform_job(job, queue, execution))
+            with self.shutdown.busy():
+                return bool(super().perform_job(job, queue, execution))
 
         def request_stop(self, signum: Any, frame: Any) -> None:
-            if self.stop_event is not None:
-                self.stop_event.set()
-            super().request_stop(signum, frame)
+            """Warm shutdown without touching Redis in the handler (see workers.shutdown).
+
+            RQ's own handler writes the shutdown date to Redis from inside the handler: with
+            Redis gone that blocks for minutes, and it can deadlock on the connection pool's
+            lock held by the interrupted main thread.
+            """
+            self.shutdown.begin()
+            self._shutdown_requested_date = now()
+            signal.signal(signal.SIGINT, self.request_force_stop)
+            signal.signal(signal.SIGTERM, self.request_force_stop)
+            if self.get_state() == WorkerStatus.BUSY:
+                self._stop_requested = True  # RQ's loop ends after the current task
+            else:
+                raise StopRequested()
 
     return TuttiWorker
 
@@ -108,6 +123,7 @@ def worker_main(opts: dict[str, Any]) -> None:
     from tuttiml.service.config import Settings
     from tuttiml.service.connection import resolve_url
     from tuttiml.workers.context import WorkerContext, install
+    from tuttiml.workers.shutdown import Shutdown
     from tuttiml.workers.sweep import sweep
 
     settings = Settings.from_env(
@@ -122,7 +138,7 @@ def worker_main(opts: dict[str, Any]) -> None:
     install(ctx)
     ctx.trials.start()
     cls = _make_worker_class()
-    cls.stop_event = ctx.stop
+    cls.shutdown = Shutdown(ctx, ctx.settings.stop_grace_seconds)
     worker = cls(
         [ctx.queue.final, ctx.queue.search],
         connection=ctx.queue.connection,

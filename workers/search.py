@@ -39,6 +39,7 @@ log = logging.getLogger(__name__)
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
 MAX_RETRIES = 2
+SHUT_DOWN = "stopped: its worker was shut down (SIGTERM)"
 CALIBRATION = "calibration"
 SLICE_SLACK = 600.0  # RQ job timeout on top of the slice and one trial
 LEAKAGE_TIMEOUT = 120.0  # at least this long for the leakage checks before the first trial
@@ -406,6 +407,9 @@ class Shard:
                 return False
             if len(scores) >= self.spec.folds:
                 return True  # every fold is done: a complete trial is never pruned
+            if self.ctx.stop.is_set():  # SIGTERM: stop here, fail and retry it below
+                row["note"] = "worker_stop"
+                return False
             return not trial.should_prune()
 
         lease_key = self.store.keys.trial_lease(self.job_id, trial._trial_id)
@@ -421,6 +425,9 @@ class Shard:
             detail = str(exc)
             if isinstance(exc, ChildFailure) and exc.trace:
                 self.log(f"trial {trial.number} traceback:\n{exc.trace}")
+            if self.ctx.stop.is_set():
+                self.fail(study, trial, row, f"{SHUT_DOWN}; {detail}", retry=True, count=False)
+                return
             timed_out = isinstance(exc, TrialCrashed) and exc.reason == "timeout"
             if timed_out and timeout < self.spec.trial_timeout:  # cut by the job's deadline
                 detail = f"stopped at the job's deadline after {timeout:.0f} s"
@@ -440,6 +447,9 @@ class Shard:
             finished_at=time.time(),
             seconds=time.time() - t0,
         )
+        if row.get("note") == "worker_stop":
+            self.fail(study, trial, row, SHUT_DOWN, retry=True, count=False)
+            return
         if kind == "done":
             score = float(np.mean(result["fold_scores"]))
             row.update(

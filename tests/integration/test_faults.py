@@ -220,7 +220,7 @@ def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None
 
 
 @pytest.mark.slow
-def test_sigterm_finishes_the_current_trial_and_exits(
+def test_sigterm_stops_the_current_trial_and_exits(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
     env = _faults({"sleep_fold": 0.6})
