@@ -27,8 +27,6 @@ import threading
 import time
 from collections.abc import Iterator
 
-from redis.backoff import ExponentialBackoff
-from redis.retry import Retry
 from tuttiml.workers.context import WorkerContext
 
 log = logging.getLogger(__name__)
@@ -66,7 +64,7 @@ class Shutdown:
         self._begun.set()
         self.ctx.stop.set()
         with contextlib.suppress(Exception):
-            self.ctx.store.r.set_retry(Retry(ExponentialBackoff(cap=0.5, base=0.05), 2))
+            self.ctx.store.give_up_quickly()
         threading.Thread(target=self._watch, daemon=True, name="tutti-shutdown").start()
 
     def _watch(self) -> None:
