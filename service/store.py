@@ -401,6 +401,11 @@ class JobStore:
 
         self._r.set_retry(Retry(ExponentialBackoff(cap=0.5, base=0.05), 2))
 
+    def server_time(self) -> float:
+        """The Redis server's clock (seconds): one clock for every machine, however skewed."""
+        sec, usec = self._r.time()
+        return float(sec) + float(usec) / 1e6
+
     def server_uptime(self) -> float:
         """Seconds since the Redis server started (expiries restart with it)."""
         return float(self._r.info("server").get("uptime_in_seconds", 1e9))

@@ -143,7 +143,9 @@ def worker_main(opts: dict[str, Any]) -> None:
         [ctx.queue.final, ctx.queue.search],
         connection=ctx.queue.connection,
         serializer="json",
-        name=ctx.name,
+        # RQ refuses a name still registered by a worker that was killed (until its TTL runs
+        # out, minutes): with --name, a restarted worker would die at start without the pid
+        name=f"{ctx.name}.{os.getpid()}",
     )
 
     started = time.time()

@@ -67,9 +67,30 @@ def finalize_job(job_id: str) -> str:
     ctx = current()
     if not ctx.store.exists(job_id):
         return "no such job"
+    if _shards_still_running(job_id):
+        return "shards still running"
     with Lease(ctx, ctx.store.keys.shard_lease(job_id, -1), ctx.settings.lease_seconds):
         _reap_before_finalize(job_id)
         return Finalizer(ctx, job_id).run()
+
+
+def _shards_still_running(job_id: str) -> bool:
+    """True when a search shard of a running job still holds its lease: finalize must wait.
+
+    The live-shard counter can reach 0 while a shard still runs: the sweep replaced a shard
+    it took for lost (a worker frozen past its lease) and the original came back. Finalize
+    then would commit while trials still run. Each shard that stops for good enqueues
+    finalize again, so returning here loses nothing.
+    """
+    from tuttiml.service.store import JobState
+
+    ctx = current()
+    if ctx.store.state(job_id) not in (JobState.QUEUED, JobState.RUNNING):
+        return False
+    if ctx.store.running_shards(job_id) > 0:
+        ctx.store.log(job_id, f"[{ctx.name}] finalize: shards still running; left to them")
+        return True
+    return False
 
 
 def _reap_before_finalize(job_id: str) -> None:

@@ -10,6 +10,7 @@ from __future__ import annotations
 import os
 import signal
 import subprocess
+import sys
 import time
 from pathlib import Path
 from typing import Any
@@ -19,7 +20,7 @@ import pytest
 from optuna.trial import TrialState
 from tuttiml.service.client import Client
 
-from tests.conftest import RedisProcess, start_workers
+from tests.conftest import QUICK_EXPLAIN, ROOT, RedisProcess, start_workers
 from tests.integration.test_faults import _faults, _study_states, _submit, _tree, wait_until
 
 pytestmark = pytest.mark.integration
@@ -142,3 +143,36 @@ def test_sigterm_fails_a_long_trial_after_the_grace_and_retries_it(
     again = [r for r in rows.values() if r.get("retry_of") == 1]
     assert len(again) == 1 and again[0]["state"] in ("complete", "pruned")
     assert sum(r["state"] in ("complete", "pruned") for r in rows.values()) == 4
+
+
+def test_a_named_worker_restarted_after_a_kill_takes_work(
+    client: Client, redis_url: str, prefix: str, tmp_path: Path
+) -> None:
+    """RQ keeps a killed worker's registration for minutes; a restart under the same
+    ``--name`` used to die at start ("There exists an active worker named ...")."""
+
+    def named(burst: bool, log: str) -> subprocess.Popen[bytes]:
+        cmd = [sys.executable, "-m", "tuttiml.workers", "--processes", "1", "--name", "box"]
+        cmd += ["--redis-url", redis_url, "--prefix", prefix] + (["--burst"] if burst else [])
+        env = {**os.environ, "PYTHONPATH": str(ROOT), **QUICK_EXPLAIN, **_faults({})}
+        out = open(tmp_path / log, "ab")  # noqa: SIM115
+        return subprocess.Popen(
+            cmd, env=env, stdout=out, stderr=subprocess.STDOUT, start_new_session=True
+        )
+
+    first = named(False, "w1.log")
+    try:
+        wait_until(lambda: len(client.workers()) == 1, 120)
+        os.killpg(first.pid, signal.SIGKILL)  # a machine loss: no deregistration
+        first.wait(10)
+    finally:
+        if first.poll() is None:
+            first.kill()
+    job = _submit(client, max_trials=2, parallelism=1, seed=23, families=["single"])
+    again = named(True, "w2.log")
+    try:
+        status = job.wait(timeout=180)
+    finally:
+        if again.poll() is None:
+            again.kill()
+    assert status["state"] == "finished", (tmp_path / "w2.log").read_text()[-2000:]
