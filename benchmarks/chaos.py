@@ -327,7 +327,7 @@ class Soak:
         self.args, self.base = args, base
         self.rng = random.Random(args.seed)
         self.prefix = f"chaos{args.seed}"
-        self.store = Store(base, args.disk_mb)
+        self.store = Store(base, args.disk_mb if "disk_full" in args.kinds else 0)
         self.store.start()
         self.relay = Relay(self.store.port)
         direct = f"redis://{LOOPBACK}:{self.store.port}/0"
@@ -340,6 +340,7 @@ class Soak:
         from tuttiml.service.client import Client
 
         self.client = Client(url=direct, prefix=self.prefix)
+        self.client.store.give_up_quickly()  # the soak's own loop must never wait on Redis
         self.tables = tables()
         self.jobs: list[Tracked] = []
         self.faults: list[tuple[float, str, str]] = []  # (at, kind, what happened)
@@ -351,13 +352,13 @@ class Soak:
     # --------------------------------------------------------------- schedule
     def schedule(self, span: float) -> list[tuple[float, str]]:
         """``args.faults`` fault times spread over ``span`` seconds, every kind in turn."""
-        kinds = [KINDS[i % len(KINDS)] for i in range(self.args.faults)]
+        kinds = [self.args.kinds[i % len(self.args.kinds)] for i in range(self.args.faults)]
         self.rng.shuffle(kinds)
         times = sorted(self.rng.uniform(20, span) for _ in kinds)
         return list(zip(times, kinds, strict=True))
 
     def submit(self, i: int) -> None:
-        shape = SHAPES[i % len(SHAPES)]
+        shape = self.args.shapes[i % len(self.args.shapes)]
         table, spec = SHAPE_SPECS[shape]
         frame, target = self.tables[table]
         job = self.client.submit(
@@ -532,7 +533,7 @@ class Soak:
             "seed": self.args.seed,
             "minutes": round(elapsed / 60, 1),
             "jobs": len(self.jobs),
-            "jobs_by_shape": {s: sum(t.shape == s for t in self.jobs) for s in SHAPES},
+            "jobs_by_shape": {s: sum(t.shape == s for t in self.jobs) for s in self.args.shapes},
             "faults_injected": sum(kinds.values()),
             "faults_by_kind": kinds,
             "faults_not_fired": len(unfired),
@@ -636,8 +637,15 @@ def parse(argv: list[str] | None = None) -> argparse.Namespace:
     p.add_argument("--freeze", type=float, nargs=2, default=(30.0, 90.0), help="seconds")
     p.add_argument("--drop", type=float, nargs=2, default=(5.0, 60.0), help="seconds")
     p.add_argument("--disk-mb", type=int, default=256, help="tmpfs under the AOF (0: none)")
+    p.add_argument("--kinds", default=",".join(KINDS), help="fault kinds, comma-separated")
+    p.add_argument("--shapes", default=",".join(SHAPES), help="job shapes, comma-separated")
     p.add_argument("--keep", action="store_true", help="keep the work directory")
-    return p.parse_args(argv)
+    args = p.parse_args(argv)
+    args.kinds, args.shapes = args.kinds.split(","), args.shapes.split(",")
+    unknown = sorted(set(args.kinds) - set(KINDS)) + sorted(set(args.shapes) - set(SHAPES))
+    if unknown:
+        p.error(f"unknown kinds or shapes {unknown}; choose from {KINDS} and {SHAPES}")
+    return args
 
 
 def main(argv: list[str] | None = None) -> dict[str, Any]:

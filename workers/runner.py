@@ -26,6 +26,7 @@ from typing import Any
 log = logging.getLogger("tutti.worker")
 SWEEP_SECONDS = 30.0
 HEARTBEAT_SECONDS = 2.0
+RESTART_SECONDS = 5.0
 
 
 @dataclass(frozen=True)
@@ -296,15 +297,20 @@ def plan(processes: int | None, cores: int | None, threads: int) -> tuple[int, i
 
 
 def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
-    """Start the worker processes and supervise them until they exit or a signal arrives."""
+    """Start the worker processes and supervise them until they exit or a signal arrives.
+
+    Without ``--burst`` a worker process that exits on its own (it gave up on a Redis that
+    stayed away, or refused its writes, for longer than its retries) is started again after
+    ``RESTART_SECONDS``, so a long outage does not leave the machine with fewer workers.
+    """
     from tuttiml.workers.runtime import limit_threads
 
     processes, threads = plan(args.processes, args.cores, args.threads)
     limit_threads(threads)
     ctx = mp.get_context("spawn")
     base = args.name or f"{os.uname().nodename}-{os.getpid()}"
-    procs = []
-    for i in range(processes):
+
+    def start(i: int) -> Any:
         opts = WorkerOptions(
             url=args.redis_url,
             prefix=args.prefix,
@@ -315,9 +321,13 @@ def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
         )
         p = ctx.Process(target=worker_main, args=(asdict(opts),), name=f"tutti-worker-{i}")
         p.start()
-        procs.append(p)
+        return p
+
+    procs = [start(i) for i in range(processes)]
+    stopping = threading.Event()
 
     def forward(signum: int, _frame: Any) -> None:
+        stopping.set()
         for p in procs:
             with contextlib.suppress(ProcessLookupError, TypeError):
                 os.kill(p.pid, signal.SIGTERM)
@@ -329,6 +339,17 @@ def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
         f"{'exits when the queues are empty' if args.exit_when_empty else 'Ctrl-C to stop'}",
         flush=True,
     )
+    exited: dict[int, float] = {}
+    while not args.burst and not stopping.is_set():
+        for i, p in enumerate(procs):
+            if p.is_alive() or stopping.is_set():
+                continue
+            since = exited.setdefault(i, time.monotonic())
+            if time.monotonic() - since >= RESTART_SECONDS:
+                print(f"tutti: worker {base}.{i} exited ({p.exitcode}); restarting", flush=True)
+                procs[i] = start(i)
+                exited.pop(i)
+        stopping.wait(1.0)
     for p in procs:
         p.join()
     return max((abs(p.exitcode or 0) for p in procs), default=0)

@@ -40,6 +40,21 @@ def test_doctor_accepts_a_safe_server_and_names_what_to_change(tmp_path: Path) -
         server.kill()
 
 
+def test_doctor_names_a_server_at_its_memory_limit(tmp_path: Path) -> None:
+    server = RedisProcess(tmp_path).start()
+    try:
+        r = redis.Redis.from_url(server.url)
+        assert "memory" not in {f.check for f in diagnose(r, server.url)}  # no limit set
+        used = int(r.info("memory")["used_memory"])
+        r.config_set("maxmemory", str(int(used / 0.95)))  # writes about to be refused
+        problems = {f.check: f.detail for f in diagnose(r, server.url) if f.level == PROBLEM}
+        assert "raise maxmemory" in problems["memory"]
+        r.config_set("maxmemory", str(100 * used))
+        assert "memory" not in {f.check for f in diagnose(r, server.url) if f.level == PROBLEM}
+    finally:
+        server.kill()
+
+
 def test_purge_removes_only_old_final_jobs(client) -> None:  # type: ignore[no-untyped-def]
     frame = load_iris(as_frame=True).frame
     old = client.submit(frame, target="target", max_trials=1)

@@ -176,3 +176,24 @@ def test_a_named_worker_restarted_after_a_kill_takes_work(
         if again.poll() is None:
             again.kill()
     assert status["state"] == "finished", (tmp_path / "w2.log").read_text()[-2000:]
+
+
+def test_the_launcher_restarts_a_worker_process_that_exited(
+    client: Client, redis_url: str, prefix: str, tmp_path: Path
+) -> None:
+    """A worker process gives up after a long Redis outage (or is killed by the OOM killer);
+    without --burst its launcher starts it again instead of running one process short."""
+    w = start_workers(redis_url, prefix, 1, burst=False, env=_faults({}), log=tmp_path / "w.log")
+    try:
+        first = wait_until(lambda: client.workers(), 120)[0]["pid"]
+        os.kill(first, signal.SIGKILL)
+        again = wait_until(
+            lambda: [x for x in client.workers() if x["pid"] != first and _live(x["pid"])], 120
+        )
+        assert again[0]["pid"] in _tree(w.pid)
+        tree = _tree(w.pid)
+        os.kill(w.pid, signal.SIGTERM)
+        assert _exit_seconds(w, tree, 60) < 30  # and SIGTERM still ends the group
+    finally:
+        if w.poll() is None:
+            w.kill()
