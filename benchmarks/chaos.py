@@ -348,6 +348,7 @@ class Soak:
         self.frozen: list[tuple[float, psutil.Process]] = []
         self.restore: list[tuple[float, str]] = []
         self.rss: dict[int, list[int]] = {}
+        self.launcher_exits = 0
 
     # --------------------------------------------------------------- schedule
     def schedule(self, span: float) -> list[tuple[float, str]]:
@@ -477,7 +478,9 @@ class Soak:
             self.store.start()
         for env in self.envs:
             if env.proc is not None and env.proc.poll() is not None:
-                env.start()  # a launcher that exited (e.g. all its workers died)
+                self.launcher_exits += 1  # nobody asked it to stop: a finding
+                print(f"launcher of environment {env.name} exited on its own", flush=True)
+                env.start()
             for p in env.workers():
                 self.rss.setdefault(p.pid, []).append(tree_rss(p))
 
@@ -540,6 +543,7 @@ class Soak:
             "skipped": self.skipped,
             "jobs_with_problems": len(bad),
             "problems": {t.job.id: t.problems for t in bad},
+            "launcher_exits_unasked": self.launcher_exits,
             "worker_memory_growth_max": growth,
             "sigterm_exit_seconds_max": round(max(stop_seconds), 1),
         }
@@ -668,5 +672,9 @@ def main(argv: list[str] | None = None) -> dict[str, Any]:
 if __name__ == "__main__":
     result = main()
     print(json.dumps(result, indent=2))
-    ok = result["jobs_with_problems"] == 0 and (result["worker_memory_growth_max"] or 0) <= 0.10
+    ok = (
+        result["jobs_with_problems"] == 0
+        and result["launcher_exits_unasked"] == 0
+        and (result["worker_memory_growth_max"] or 0) <= 0.10
+    )
     sys.exit(0 if ok else 1)

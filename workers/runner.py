@@ -299,9 +299,9 @@ def plan(processes: int | None, cores: int | None, threads: int) -> tuple[int, i
 def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
     """Start the worker processes and supervise them until they exit or a signal arrives.
 
-    Without ``--burst`` a worker process that exits on its own (it gave up on a Redis that
-    stayed away, or refused its writes, for longer than its retries) is started again after
-    ``RESTART_SECONDS``, so a long outage does not leave the machine with fewer workers.
+    Without ``--exit-when-empty`` a worker process that exits on its own (it gave up on a
+    Redis that stayed away, or refused its writes, for longer than its retries) is started
+    again after ``RESTART_SECONDS``, so a long outage does not leave the machine short.
     """
     from tuttiml.workers.runtime import limit_threads
 
@@ -340,7 +340,7 @@ def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
         flush=True,
     )
     exited: dict[int, float] = {}
-    while not args.burst and not stopping.is_set():
+    while not args.exit_when_empty and not stopping.is_set():
         for i, p in enumerate(procs):
             if p.is_alive() or stopping.is_set():
                 continue

@@ -47,4 +47,5 @@ def test_short_chaos_soak_keeps_every_invariant() -> None:
     assert figures["jobs"] == 2 and figures["faults_not_fired"] == 0
     assert figures["faults_by_kind"] == {"worker_kill": 1, "redis_kill": 1, "link_drop": 1}
     assert figures["problems"] == {}
+    assert figures["launcher_exits_unasked"] == 0  # no worker group died on its own
     assert figures["sigterm_exit_seconds_max"] < 30  # SIGTERM ends every group (bounded)
