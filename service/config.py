@@ -48,6 +48,9 @@ class Settings:
             these bounds.
         explain_max_seconds: the cap of the default explanation time
             (``TUTTI_EXPLAIN_MAX_SECONDS``).
+        stop_grace_seconds: after SIGTERM, how long a busy worker lets its trial reach the
+            end of a fold (``TUTTI_STOP_GRACE_SECONDS``); then the trial process is killed,
+            the trial failed and retried, and the worker exits in any case soon after.
     """
 
     redis_url: str | None = None
@@ -59,6 +62,7 @@ class Settings:
     artifact_key: str | None = None
     explain_min_seconds: float = 30.0
     explain_max_seconds: float = 900.0
+    stop_grace_seconds: float = 30.0
 
     @classmethod
     def from_env(cls, **overrides: object) -> Settings:
@@ -75,6 +79,7 @@ class Settings:
             artifact_key=os.environ.get("TUTTI_ARTIFACT_KEY") or None,
             explain_min_seconds=_env_float("TUTTI_EXPLAIN_MIN_SECONDS", cls.explain_min_seconds),
             explain_max_seconds=_env_float("TUTTI_EXPLAIN_MAX_SECONDS", cls.explain_max_seconds),
+            stop_grace_seconds=_env_float("TUTTI_STOP_GRACE_SECONDS", cls.stop_grace_seconds),
         )
         given = {k: v for k, v in overrides.items() if v is not None}
         if "home" in given:

@@ -44,6 +44,47 @@ def _loopback(url: str) -> bool:
         return False
 
 
+#: Share of ``maxmemory`` in use from which writes may soon be refused.
+MEMORY_WARN = 0.9
+
+
+def _pressure(r: redis.Redis) -> list[Finding]:
+    """Faults that make writes impossible right now: memory limit reached, AOF not writable.
+
+    With ``noeviction`` a full server refuses every write (trial results, leases), and a
+    server that cannot write its append-only file (full disk) refuses them too or stops.
+    """
+    out: list[Finding] = []
+    try:
+        mem = r.info("memory")
+        persistence = r.info("persistence")
+    except redis.RedisError:
+        return out
+    limit, used = int(mem.get("maxmemory", 0) or 0), int(mem.get("used_memory", 0) or 0)
+    if limit and used >= MEMORY_WARN * limit:
+        out.append(
+            Finding(
+                PROBLEM,
+                "memory",
+                f"Redis uses {used / 2**20:.0f} MiB of its maxmemory {limit / 2**20:.0f} MiB: "
+                "writes are or will soon be refused and running jobs stall; raise maxmemory "
+                "or remove old jobs (tutti purge)",
+            )
+        )
+    elif limit:
+        out.append(Finding(OK, "memory", f"{used / limit:.0%} of maxmemory in use"))
+    if str(persistence.get("aof_last_write_status", "ok")) != "ok":
+        out.append(
+            Finding(
+                PROBLEM,
+                "disk",
+                "the append-only file could not be written (disk full?): writes are refused; "
+                "free space on the server's disk; nothing acknowledged before is lost",
+            )
+        )
+    return out
+
+
 def diagnose(r: redis.Redis, url: str, *, embedded: bool = False) -> list[Finding]:
     """Run every check against a connected server."""
     info = r.info("server")
@@ -52,6 +93,7 @@ def diagnose(r: redis.Redis, url: str, *, embedded: bool = False) -> list[Findin
     eviction = _eviction(r)
     if eviction is not None:
         out.append(eviction)
+    out.extend(_pressure(r))
     out.append(_access(url))
     return out
 

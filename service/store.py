@@ -390,6 +390,22 @@ class JobStore:
     def drop_worker(self, name: str) -> None:
         self._r.delete(self.keys.worker_alive(name))
 
+    def give_up_quickly(self) -> None:
+        """From now on a failed command is retried twice within a second, then raises.
+
+        For a worker shutting down: its normal client rides out a minute-long Redis outage,
+        which would keep a SIGTERM-ed worker alive that long once Redis is gone.
+        """
+        from redis.backoff import ExponentialBackoff
+        from redis.retry import Retry
+
+        self._r.set_retry(Retry(ExponentialBackoff(cap=0.5, base=0.05), 2))
+
+    def server_time(self) -> float:
+        """The Redis server's clock (seconds): one clock for every machine, however skewed."""
+        sec, usec = self._r.time()
+        return float(sec) + float(usec) / 1e6
+
     def server_uptime(self) -> float:
         """Seconds since the Redis server started (expiries restart with it)."""
         return float(self._r.info("server").get("uptime_in_seconds", 1e9))

@@ -19,6 +19,7 @@ import multiprocessing as mp
 import os
 import resource
 import signal
+import sys
 import time
 import traceback
 from dataclasses import dataclass
@@ -77,10 +78,12 @@ def _memory_limit(limit_mb: int | None):
         resource.setrlimit(resource.RLIMIT_AS, (soft, hard))
 
 
-def _child_main(conn: Connection, threads: int) -> None:
+def _child_main(conn: Connection, threads: int, parent: int) -> None:
     from tuttiml.workers.runtime import die_with_parent, limit_threads, return_freed_memory
 
     die_with_parent()
+    if os.getppid() != parent:  # the worker died while this process was still starting
+        os._exit(0)
     return_freed_memory()
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the worker decides when we stop
     signal.signal(signal.SIGTERM, signal.SIG_IGN)  # a trial is never cut short by TERM
@@ -94,8 +97,11 @@ def _child_main(conn: Connection, threads: int) -> None:
         except EOFError:
             return
         kind, request = msg[0], (msg[1] if len(msg) > 1 else {})
-        if kind == "exit":
-            return
+        if kind == "exit":  # nothing to save: skip the interpreter's slow teardown
+            with contextlib.suppress(Exception):
+                sys.stdout.flush()
+                sys.stderr.flush()
+            os._exit(0)
         try:
             with _memory_limit(request.get("memory_mb")):
                 if kind == "evaluate":
@@ -143,7 +149,10 @@ class TrialProcess:
             return
         parent, child = self._ctx.Pipe()
         self._proc = self._ctx.Process(
-            target=_child_main, args=(child, self.threads), name="tutti-trial", daemon=True
+            target=_child_main,
+            args=(child, self.threads, os.getpid()),
+            name="tutti-trial",
+            daemon=True,
         )
         self._proc.start()
         child.close()
@@ -207,7 +216,13 @@ class TrialProcess:
         while True:
             msg = self.receive(deadline)
             if msg[0] == "fold":
-                go = True if on_fold is None else bool(on_fold(msg[1], msg[2]))
+                try:
+                    go = True if on_fold is None else bool(on_fold(msg[1], msg[2]))
+                except BaseException:
+                    # the child waits for an answer it will never get: a later request would
+                    # be read as that answer, so start the next one with a fresh child
+                    self.kill()
+                    raise
                 self.send(("go",) if go else ("stop",))
                 continue
             if msg[0] == "error":

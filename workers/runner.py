@@ -3,8 +3,9 @@
 It starts ``--processes`` worker processes, each an RQ worker (JSON serializer, allow-listed
 tasks) that runs search slices and finalize tasks and owns one supervised trial child. Heavy
 modules are imported in each worker before it takes work; every process that fits runs with
-``threads`` threads (``processes × threads ≤ cores``). A SIGTERM asks every worker to finish
-or fail its current trial and exit; if the launcher dies, its workers and their trial
+``threads`` threads (``processes × threads ≤ cores``). A SIGTERM asks every worker to stop its
+current trial at the end of a fold (failed and retried) and exit, within bounded time whatever
+state Redis is in (``workers.shutdown``); if the launcher dies, its workers and their trial
 children die with it.
 """
 
@@ -25,6 +26,7 @@ from typing import Any
 log = logging.getLogger("tutti.worker")
 SWEEP_SECONDS = 30.0
 HEARTBEAT_SECONDS = 2.0
+RESTART_SECONDS = 5.0
 
 
 @dataclass(frozen=True)
@@ -42,13 +44,15 @@ class WorkerOptions:
 
 
 def _make_worker_class() -> type:
-    from rq.worker import SimpleWorker
+    from rq.exceptions import StopRequested
+    from rq.utils import now
+    from rq.worker import SimpleWorker, WorkerStatus
     from tuttiml.service.queue import ALLOWED_TASKS
 
     class TuttiWorker(SimpleWorker):
         """RQ's in-process worker that runs only our allow-listed task functions."""
 
-        stop_event: threading.Event | None = None
+        shutdown: Any = None  # workers.shutdown.Shutdown, set by worker_main
 
         def perform_job(self, job: Any, queue: Any, execution: Any) -> bool:
             try:
@@ -65,12 +69,24 @@ def _make_worker_class() -> type:
                     self._finalize_failure(job, queue, execution, sys.exc_info())
                 log.error("refused forged or foreign task %r (job %s)", name, job.id)
                 return False
-            return bool(super().perform_job(job, queue, execution))
+            with self.shutdown.busy():
+                return bool(super().perform_job(job, queue, execution))
 
         def request_stop(self, signum: Any, frame: Any) -> None:
-            if self.stop_event is not None:
-                self.stop_event.set()
-            super().request_stop(signum, frame)
+            """Warm shutdown without touching Redis in the handler (see workers.shutdown).
+
+            RQ's own handler writes the shutdown date to Redis from inside the handler: with
+            Redis gone that blocks for minutes, and it can deadlock on the connection pool's
+            lock held by the interrupted main thread.
+            """
+            self.shutdown.begin()
+            self._shutdown_requested_date = now()
+            signal.signal(signal.SIGINT, self.request_force_stop)
+            signal.signal(signal.SIGTERM, self.request_force_stop)
+            if self.get_state() == WorkerStatus.BUSY:
+                self._stop_requested = True  # RQ's loop ends after the current task
+            else:
+                raise StopRequested()
 
     return TuttiWorker
 
@@ -108,6 +124,7 @@ def worker_main(opts: dict[str, Any]) -> None:
     from tuttiml.service.config import Settings
     from tuttiml.service.connection import resolve_url
     from tuttiml.workers.context import WorkerContext, install
+    from tuttiml.workers.shutdown import Shutdown
     from tuttiml.workers.sweep import sweep
 
     settings = Settings.from_env(
@@ -122,12 +139,14 @@ def worker_main(opts: dict[str, Any]) -> None:
     install(ctx)
     ctx.trials.start()
     cls = _make_worker_class()
-    cls.stop_event = ctx.stop
+    cls.shutdown = Shutdown(ctx, ctx.settings.stop_grace_seconds)
     worker = cls(
         [ctx.queue.final, ctx.queue.search],
         connection=ctx.queue.connection,
         serializer="json",
-        name=ctx.name,
+        # RQ refuses a name still registered by a worker that was killed (until its TTL runs
+        # out, minutes): with --name, a restarted worker would die at start without the pid
+        name=f"{ctx.name}.{os.getpid()}",
     )
 
     started = time.time()
@@ -278,15 +297,20 @@ def plan(processes: int | None, cores: int | None, threads: int) -> tuple[int, i
 
 
 def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
-    """Start the worker processes and supervise them until they exit or a signal arrives."""
+    """Start the worker processes and supervise them until they exit or a signal arrives.
+
+    Without ``--exit-when-empty`` a worker process that exits on its own (it gave up on a
+    Redis that stayed away, or refused its writes, for longer than its retries) is started
+    again after ``RESTART_SECONDS``, so a long outage does not leave the machine short.
+    """
     from tuttiml.workers.runtime import limit_threads
 
     processes, threads = plan(args.processes, args.cores, args.threads)
     limit_threads(threads)
     ctx = mp.get_context("spawn")
     base = args.name or f"{os.uname().nodename}-{os.getpid()}"
-    procs = []
-    for i in range(processes):
+
+    def start(i: int) -> Any:
         opts = WorkerOptions(
             url=args.redis_url,
             prefix=args.prefix,
@@ -297,9 +321,13 @@ def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
         )
         p = ctx.Process(target=worker_main, args=(asdict(opts),), name=f"tutti-worker-{i}")
         p.start()
-        procs.append(p)
+        return p
+
+    procs = [start(i) for i in range(processes)]
+    stopping = threading.Event()
 
     def forward(signum: int, _frame: Any) -> None:
+        stopping.set()
         for p in procs:
             with contextlib.suppress(ProcessLookupError, TypeError):
                 os.kill(p.pid, signal.SIGTERM)
@@ -311,6 +339,17 @@ def launch(args: argparse.Namespace, *, home: str | None = None) -> int:
         f"{'exits when the queues are empty' if args.exit_when_empty else 'Ctrl-C to stop'}",
         flush=True,
     )
+    exited: dict[int, float] = {}
+    while not args.exit_when_empty and not stopping.is_set():
+        for i, p in enumerate(procs):
+            if p.is_alive() or stopping.is_set():
+                continue
+            since = exited.setdefault(i, time.monotonic())
+            if time.monotonic() - since >= RESTART_SECONDS:
+                print(f"tutti: worker {base}.{i} exited ({p.exitcode}); restarting", flush=True)
+                procs[i] = start(i)
+                exited.pop(i)
+        stopping.wait(1.0)
     for p in procs:
         p.join()
     return max((abs(p.exitcode or 0) for p in procs), default=0)

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import contextlib
 import logging
-import threading
 import time
 import warnings
 from dataclasses import dataclass
@@ -32,6 +31,7 @@ from tuttiml.workers.families import get_family
 from tuttiml.workers.families._base import FamilyContext
 from tuttiml.workers.finalize import refit_seconds
 from tuttiml.workers.journal import journal_storage
+from tuttiml.workers.leases import Lease, Reaper
 from tuttiml.workers.oof import oof_bytes
 from tuttiml.workers.schedule import Budget, choose_arm, fixed_params, portfolio_trials
 
@@ -39,6 +39,7 @@ log = logging.getLogger(__name__)
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
 MAX_RETRIES = 2
+SHUT_DOWN = "stopped: its worker was shut down (SIGTERM)"
 CALIBRATION = "calibration"
 SLICE_SLACK = 600.0  # RQ job timeout on top of the slice and one trial
 LEAKAGE_TIMEOUT = 120.0  # at least this long for the leakage checks before the first trial
@@ -142,31 +143,6 @@ class Deadlines:
         return cls(hard=hard, search=hard - reserve)
 
 
-class Lease:
-    """A Redis key with a short expiry, refreshed by a thread while a trial runs."""
-
-    def __init__(self, ctx: WorkerContext, key: str, seconds: float) -> None:
-        self._store, self._key, self._ttl = ctx.store, key, max(round(seconds * 1000), 1000)
-        self._stop = threading.Event()
-        self._thread = threading.Thread(target=self._beat, daemon=True, name="tutti-lease")
-
-    def _beat(self) -> None:
-        while not self._stop.wait(self._ttl / 3000.0):
-            with contextlib.suppress(Exception):
-                self._store.hold_lease(self._key, self._ttl)
-
-    def __enter__(self) -> Lease:
-        self._store.hold_lease(self._key, self._ttl)
-        self._thread.start()
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self._stop.set()
-        self._thread.join(2)
-        with contextlib.suppress(Exception):
-            self._store.drop_lease(self._key)
-
-
 class Shard:
     """Runs one slice of a job's search in this worker process."""
 
@@ -176,6 +152,8 @@ class Shard:
         self.record = self.store.job(job_id)
         self.spec = SearchSpec.model_validate(self.record["spec"])
         self._last_reap = 0.0
+        self._slice_end = float("inf")
+        self.reaper = Reaper(ctx, job_id)
 
     # ----------------------------------------------------------------- entry point
     def run(self) -> str:
@@ -203,7 +181,7 @@ class Shard:
             library_size=self.spec.library_size,
             log_line=self.log,
         )
-        slice_end = time.monotonic() + self.ctx.settings.shard_seconds
+        slice_end = self._slice_end = time.monotonic() + self.ctx.settings.shard_seconds
         reason = ""
         while not reason:
             reason = self.stop_reason()
@@ -213,6 +191,8 @@ class Shard:
                 reason = "slice"
                 break
             if self.store.take_ticket(self.job_id, self.spec.max_trials) is None:
+                if self.settle_orphans(study):
+                    continue
                 reason = "budget"
                 break
             self.reap(study)
@@ -427,6 +407,9 @@ class Shard:
                 return False
             if len(scores) >= self.spec.folds:
                 return True  # every fold is done: a complete trial is never pruned
+            if self.ctx.stop.is_set():  # SIGTERM: stop here, fail and retry it below
+                row["note"] = "worker_stop"
+                return False
             return not trial.should_prune()
 
         lease_key = self.store.keys.trial_lease(self.job_id, trial._trial_id)
@@ -442,6 +425,9 @@ class Shard:
             detail = str(exc)
             if isinstance(exc, ChildFailure) and exc.trace:
                 self.log(f"trial {trial.number} traceback:\n{exc.trace}")
+            if self.ctx.stop.is_set():
+                self.fail(study, trial, row, f"{SHUT_DOWN}; {detail}", retry=True, count=False)
+                return
             timed_out = isinstance(exc, TrialCrashed) and exc.reason == "timeout"
             if timed_out and timeout < self.spec.trial_timeout:  # cut by the job's deadline
                 detail = f"stopped at the job's deadline after {timeout:.0f} s"
@@ -461,6 +447,9 @@ class Shard:
             finished_at=time.time(),
             seconds=time.time() - t0,
         )
+        if row.get("note") == "worker_stop":
+            self.fail(study, trial, row, SHUT_DOWN, retry=True, count=False)
+            return
         if kind == "done":
             score = float(np.mean(result["fold_scores"]))
             row.update(
@@ -544,56 +533,30 @@ class Shard:
             study.enqueue_trial(params, user_attrs={"retry_of": number, "retries": retries + 1})
 
     # ----------------------------------------------------------------- reaper
-    def store_settled(self, lease: float) -> bool:
-        """False for one lease period after Redis restarted: live trials must renew first.
-
-        Redis expiries are wall-clock, so an outage longer than the lease expires every lease;
-        reaping right after the restart would fail trials that are still running.
-        """
-        try:
-            uptime = self.store.server_uptime()
-        except Exception:
-            return False
-        return uptime >= 2 * lease
-
     def reap(self, study: optuna.Study, *, force: bool = False) -> int:
-        """Fail RUNNING trials whose lease lapsed (their worker died); returns how many."""
-        lease = self.ctx.settings.lease_seconds
+        """Fail RUNNING trials whose lease lapsed (their worker died); returns how many.
+
+        At most once per lease period unless ``force``; see ``workers.leases.Reaper``.
+        """
         now = time.monotonic()
-        if not force and now - self._last_reap < lease:
+        if not force and now - self._last_reap < self.ctx.settings.lease_seconds:
             return 0
         self._last_reap = now
-        if not self.store_settled(lease):
-            return 0
-        n = 0
-        for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
-            if self.store.trial_leased(self.job_id, t._trial_id):
-                continue
-            started = t.datetime_start.timestamp() if t.datetime_start else 0.0
-            if time.time() - started < 2 * lease:
-                continue  # just asked: its lease may not be written yet
-            try:
-                study._storage.set_trial_state_values(t._trial_id, TrialState.FAIL)
-            except Exception:  # closed in the meantime: race-tolerant
-                continue
-            n += 1
-            self.store.return_ticket(self.job_id)
-            self.store.add_failure(self.job_id)
-            family = str(t.params.get("family", "unknown"))
-            retries = int(t.user_attrs.get("retries", 0))
-            row = {
-                "number": t.number,
-                "retry_of": t.user_attrs.get("retry_of"),
-                "retries": retries,
-                "family": family,
-                "state": "failed",
-                "params": {k: v for k, v in t.params.items() if k != "family"},
-                "error": "lease expired: its worker died or lost Redis",
-                "reaped": True,
-                "finished_at": time.time(),
-            }
-            self.store.record_trial(self.job_id, row)
-            self.log(f"trial {t.number} reaped (lease expired)")
-            if "family" in t.params:
-                self._retry(study, t.number, dict(t.params), retries)
-        return n
+        return self.reaper.reap(study, retry=self._retry)
+
+    def settle_orphans(self, study: optuna.Study) -> bool:
+        """On a spent budget: wait for trials of dead workers to be reapable, then reap them.
+
+        A dead worker's trial took a ticket; reaping gives it back and queues the retry, so
+        this shard must not stop for good while such a trial is RUNNING (no other shard may be
+        left to reap it, and finalize would then run short of the budget). Returns True when
+        the run loop should go on: a ticket came back, or a stop reason or the slice end came
+        up (the loop checks those first); False when no unleased trial is left.
+        """
+        while self.reaper.orphans(study):
+            if self.reap(study, force=True):
+                return True
+            if self.stop_reason() or time.monotonic() > self._slice_end:
+                return True
+            self.ctx.stop.wait(min(1.0, self.ctx.settings.lease_seconds / 4))
+        return False

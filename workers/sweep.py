@@ -9,7 +9,6 @@ period apart, gets its lost work re-enqueued. Runs at worker start-up and then p
 from __future__ import annotations
 
 import logging
-import time
 
 from tuttiml.service.store import JobState
 from tuttiml.workers.context import WorkerContext
@@ -20,8 +19,12 @@ EXPLAIN_SHARD = -2
 
 
 def _suspect(ctx: WorkerContext, job_id: str, what: str) -> bool:
-    """True only when the same suspicion was raised at least one lease period ago."""
-    now = time.time()
+    """True only when the same suspicion was raised at least one lease period ago.
+
+    Timed on the Redis server's clock: workers' clocks may differ, and one running ahead
+    would otherwise see every first suspicion as old and act on a single look.
+    """
+    now = ctx.store.server_time()
     ttl = int(10 * ctx.settings.lease_seconds) + 10
     first = ctx.store.note_suspicion(job_id, what, now, ttl)
     if first is None:
@@ -53,6 +56,10 @@ def sweep(ctx: WorkerContext) -> int:
     """One pass over live jobs; returns how many tasks were re-enqueued."""
     store, queue = ctx.store, ctx.queue
     fixed = 0
+    if store.server_uptime() < 2 * ctx.settings.lease_seconds:
+        # Redis just restarted: every lease expired during the outage, and live shards have
+        # not renewed theirs yet; re-enqueueing now would run their slices twice
+        return 0
     for job_id in store.job_ids():
         try:
             state = store.state(job_id)

@@ -220,7 +220,7 @@ def test_redis_killed_between_ask_and_tell_and_restarted(tmp_path: Path) -> None
 
 
 @pytest.mark.slow
-def test_sigterm_finishes_the_current_trial_and_exits(
+def test_sigterm_stops_the_current_trial_and_exits(
     client: Client, redis_url: str, prefix: str, tmp_path: Path
 ) -> None:
     env = _faults({"sleep_fold": 0.6})
@@ -398,3 +398,53 @@ def test_one_worker_and_a_fixed_seed_give_the_same_leaderboard(
             if keys:
                 r.delete(*keys)
     pd.testing.assert_frame_equal(boards[0], boards[1])
+
+
+def test_worker_killed_holding_the_last_ticket_has_its_trial_reaped_and_retried(
+    client: Client, redis_url: str, prefix: str, tmp_path: Path
+) -> None:
+    """Issue 14's lost trial, made deterministic.
+
+    The victim dies running the trial of the budget's last ticket. Shards used to reap only
+    right after taking a ticket, so with no ticket left the survivor, the shard the sweep
+    re-enqueued for the victim and the third worker's all stopped on "budget" and finalize
+    ran with that trial RUNNING and its ticket spent. Now the last shard to stop waits for
+    the dead worker's lease, reaps the trial (ticket back) and runs its retry.
+    """
+    last = 5
+    env = _faults({"sleep": {str(last): 120}})
+    job = _submit(client, max_trials=last + 1, parallelism=2, seed=8, families=["single"])
+    procs = {}
+    for i in range(2):
+        p = start_workers(redis_url, prefix, 1, via_cli=True, env=env, log=tmp_path / f"w{i}.log")
+        procs[p.pid] = p
+    try:
+
+        def holder() -> tuple[int, dict[str, Any]] | None:
+            found = _victim(client, job.id, procs)
+            return found if found is not None and int(found[1]["trial"]) == last else None
+
+        launcher, _ = wait_until(holder, 180)
+        # every ticket is out: no shard will take another one (where reaping used to happen)
+        assert client.store.tickets(job.id) == last + 1
+        killed_wall = time.time()
+        os.killpg(launcher, signal.SIGKILL)  # the worker's whole process group
+        procs.pop(launcher).wait(10)
+        p = start_workers(redis_url, prefix, 1, via_cli=True, env=env, log=tmp_path / "w2.log")
+        procs[p.pid] = p  # a third worker joins, as in the issue's steps
+        status = job.wait(timeout=300)
+    finally:
+        for p in procs.values():
+            p.wait(timeout=120)
+    assert status["state"] == "finished", job.logs()[-20:]
+    assert TrialState.RUNNING not in _study_states(client, job.id)
+    rows = {r["number"]: r for r in client.store.trial_rows(job.id)}
+    assert rows[last]["state"] == "failed" and rows[last].get("reaped"), rows[last]
+    retries = [r for r in rows.values() if r.get("retry_of") == last]
+    assert len(retries) == 1 and retries[0]["state"] in ("complete", "pruned"), retries
+    assert retries[0]["family"] == rows[last]["family"]
+    # the budget is exact: the reaped trial's ticket came back and paid for its retry
+    assert sum(r["state"] in ("complete", "pruned") for r in rows.values()) == last + 1
+    assert client.store.tickets(job.id) == last + 1
+    seconds = rows[last]["finished_at"] - killed_wall
+    print(f"FIGURE last_ticket_kill_to_failed_seconds {seconds:.1f}")

@@ -40,6 +40,21 @@ def test_doctor_accepts_a_safe_server_and_names_what_to_change(tmp_path: Path) -
         server.kill()
 
 
+def test_doctor_names_a_server_at_its_memory_limit(tmp_path: Path) -> None:
+    server = RedisProcess(tmp_path).start()
+    try:
+        r = redis.Redis.from_url(server.url)
+        assert "memory" not in {f.check for f in diagnose(r, server.url)}  # no limit set
+        used = int(r.info("memory")["used_memory"])
+        r.config_set("maxmemory", str(int(used / 0.95)))  # writes about to be refused
+        problems = {f.check: f.detail for f in diagnose(r, server.url) if f.level == PROBLEM}
+        assert "raise maxmemory" in problems["memory"]
+        r.config_set("maxmemory", str(100 * used))
+        assert "memory" not in {f.check for f in diagnose(r, server.url) if f.level == PROBLEM}
+    finally:
+        server.kill()
+
+
 def test_purge_removes_only_old_final_jobs(client) -> None:  # type: ignore[no-untyped-def]
     frame = load_iris(as_frame=True).frame
     old = client.submit(frame, target="target", max_trials=1)
@@ -72,6 +87,8 @@ def test_sweep_re_enqueues_the_finalize_of_a_dead_worker(
     ctx = WorkerContext.create(
         Settings(redis_url=redis_url, prefix=prefix, lease_seconds=1.0), redis_url
     )
+    # the sweep waits two lease periods after a Redis (re)start, as live leases renew
+    time.sleep(max(0.0, 2.1 - client.store.server_uptime()))
     assert sweep(ctx) == 0  # first look: only a suspicion
     time.sleep(1.1)
     assert sweep(ctx) == 1  # still nothing running or queued a lease period later
@@ -110,7 +127,11 @@ def test_reaper_keeps_a_retry_chain_and_stops_it_at_the_retry_cap(
         t.set_user_attr("retry_of", 100 + retries)
         t.set_user_attr("retries", retries)
         numbers.append(t.number)
-    time.sleep(1.1)  # two lease periods: past the grace given to a trial just asked
+    time.sleep(1.1)  # past two lease periods of Redis uptime (reaping waits that long)
+    # the first look only notes them (a trial just asked has no lease yet either); a lease
+    # period later they are still unleased, so their worker is gone
+    assert shard.reap(study, force=True) == 0
+    time.sleep(0.6)
     assert shard.reap(study, force=True) == 2
     rows = {r["number"]: r for r in client.store.trial_rows(job.id)}
     for n, retries in zip(numbers, (1, MAX_RETRIES), strict=True):
@@ -122,3 +143,71 @@ def test_reaper_keeps_a_retry_chain_and_stops_it_at_the_retry_cap(
         (numbers[0], 2)
     ]
     assert waiting[0].system_attrs["fixed_params"] == {"family": "single"}
+
+
+def _lost_shard_job(client, redis_url: str, prefix: str, lease: float = 1.0):  # type: ignore[no-untyped-def]
+    """A running job whose only shard vanished (no lease, nothing queued)."""
+    frame = load_iris(as_frame=True).frame
+    job = client.submit(frame, target="target", max_trials=1, parallelism=1)
+    client.queue.search.empty()
+    client.store.transition(job.id, JobState.RUNNING)
+    ctx = WorkerContext.create(
+        Settings(redis_url=redis_url, prefix=prefix, lease_seconds=lease), redis_url
+    )
+    return job, ctx
+
+
+def test_sweep_times_its_suspicions_on_the_servers_clock(
+    client,
+    redis_url: str,
+    prefix: str,
+    monkeypatch: pytest.MonkeyPatch,  # type: ignore[no-untyped-def]
+) -> None:
+    """A worker whose clock runs ahead must not take a fresh suspicion for an old one."""
+    job, ctx = _lost_shard_job(client, redis_url, prefix)
+    time.sleep(max(0.0, 2.1 - client.store.server_uptime()))
+    assert sweep(ctx) == 0  # first look, from a machine with the right time
+    wall = time.time
+    monkeypatch.setattr(time, "time", lambda: wall() + 600)  # another machine, 10 min ahead
+    assert sweep(ctx) == 0  # a second look at once: no lease period has passed
+    monkeypatch.undo()
+    time.sleep(1.1)
+    assert sweep(ctx) == 1  # a lease period later the shard is still lost
+    assert [q.args for q in client.queue.search.get_jobs()] == [[job.id, 1000]]
+
+
+def test_sweep_leaves_leases_time_to_renew_after_a_redis_restart(tmp_path: Path) -> None:
+    from tuttiml.service.client import Client
+
+    server = RedisProcess(tmp_path)
+    server.start()
+    try:
+        client = Client(url=server.url, prefix="rs")
+        job, ctx = _lost_shard_job(client, server.url, "rs", lease=5.0)
+        assert sweep(ctx) == 0
+        time.sleep(5.2)  # a lease period later, but Redis is younger than two lease periods:
+        assert client.store.server_uptime() < 10  # live shards may not have renewed yet
+        assert sweep(ctx) == 0
+        assert client.queue.queued_for(job.id) == 0
+    finally:
+        server.kill()
+
+
+def test_finalize_waits_while_a_shard_still_holds_its_lease(
+    client,
+    redis_url: str,
+    prefix: str,  # type: ignore[no-untyped-def]
+) -> None:
+    """The live-shard counter hit 0 while a shard still runs: finalize leaves it to that shard."""
+    from tuttiml.workers import tasks
+    from tuttiml.workers.context import install
+
+    job, ctx = _lost_shard_job(client, redis_url, prefix)
+    install(ctx)
+    lease = client.keys.shard_lease(job.id, 0)
+    client.store.hold_lease(lease, 5000)
+    assert tasks.finalize_job(job.id) == "shards still running"
+    assert client.store.state(job.id) is JobState.RUNNING
+    client.store.drop_lease(lease)
+    assert tasks.finalize_job(job.id) != "shards still running"
+    assert client.store.state(job.id).terminal
