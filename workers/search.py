@@ -143,6 +143,35 @@ class Deadlines:
         return cls(hard=hard, search=hard - reserve)
 
 
+class _FoldProgress:
+    """Per-fold reports of one trial: feed the pruner, answer go or stop to the trial process."""
+
+    def __init__(self, shard: Shard, trial: optuna.Trial, row: dict[str, Any]) -> None:
+        self.shard, self.trial, self.row = shard, trial, row
+        self.scores: list[float] = []
+        self.rung = 0  # 1 when the table is large enough for a row-halving rung
+
+    def on_fold(self, fold: int, score: float) -> bool:
+        """Report a fold (or the rung, fold -1); False stops the trial here."""
+        sh, trial = self.shard, self.trial
+        if fold < 0:  # the rung: a fit on a row subsample, step 0 of the pruner
+            self.rung = 1
+            self.row["rung_score"] = score
+            trial.report(score, 0)
+        else:
+            self.scores.append(score)
+            trial.report(float(np.mean(self.scores)), fold + self.rung)
+        if sh.store.state(sh.job_id) is JobState.CANCELLED:
+            self.row["note"] = "cancelled"
+            return False
+        if len(self.scores) >= sh.spec.folds:
+            return True  # every fold is done: a complete trial is never pruned
+        if sh.ctx.stop.is_set():  # SIGTERM: stop here, fail and retry it below
+            self.row["note"] = "worker_stop"
+            return False
+        return not trial.should_prune()
+
+
 class Shard:
     """Runs one slice of a job's search in this worker process."""
 
@@ -338,29 +367,53 @@ class Shard:
         return [f for f in self.spec.family_names if self.fctx.task in get_family(f).tasks]
 
     def run_trial(self, study: optuna.Study) -> None:
+        """Ask one trial, evaluate it in the trial process, and record how it ended."""
         busy0 = _busy_seconds(study)
         a0 = time.perf_counter()
-        arm = None
-        try:
-            arm = self.next_arm()
-            fixed = fixed_params(arm)
-            self._seed_family(study, fixed["family"])
-            study.sampler = with_fixed(self._sampler, fixed)
-        except Exception as exc:  # the schedule must never stop the search
-            self.log(f"schedule fell back to the sampler: {type(exc).__name__}: {exc}")
-            study.sampler = self._sampler
+        arm = self._pick_arm(study)
         trial = study.ask()
-        t0 = time.time()
         row: dict[str, Any] = {
             "number": trial.number,
             "retry_of": trial.user_attrs.get("retry_of"),
             "shard": self.shard,
             "worker": self.ctx.name,
-            "started_at": t0,
+            "started_at": time.time(),
         }
         enqueued = trial.user_attrs.get("default") or "retries" in trial.user_attrs
         if arm is not None and not enqueued:
             row["arm"] = arm  # sampled for this arm (enqueued trials bring their own params)
+        drawn = self._draw(study, trial, row)
+        if drawn is None:
+            return
+        family, params = drawn
+        row.update(family=family, params=params, ask_seconds=time.perf_counter() - a0)
+        with contextlib.suppress(Exception):  # cost units for the schedule (workers.schedule)
+            row["cost"] = float(get_family(family).cost(params, self.fctx))
+        self.ctx.doing.update(
+            job=self.job_id, shard=self.shard, trial=trial.number, family=family, since=time.time()
+        )
+        folds = _FoldProgress(self, trial, row)
+        outcome = self._evaluate(study, trial, row, folds)
+        if outcome is not None:
+            self._settle(study, trial, row, outcome, folds, busy0)
+
+    def _pick_arm(self, study: optuna.Study) -> str | None:
+        """Point the sampler at the schedule's next arm (the plain sampler if that fails)."""
+        try:
+            arm = self.next_arm()
+            fixed = fixed_params(arm)
+            self._seed_family(study, fixed["family"])
+            study.sampler = with_fixed(self._sampler, fixed)
+            return arm
+        except Exception as exc:  # the schedule must never stop the search
+            self.log(f"schedule fell back to the sampler: {type(exc).__name__}: {exc}")
+            study.sampler = self._sampler
+            return None
+
+    def _draw(
+        self, study: optuna.Study, trial: optuna.Trial, row: dict[str, Any]
+    ) -> tuple[str, dict[str, Any]] | None:
+        """The trial's family and parameters; a broken search space fails the trial (None)."""
         try:
             family = str(trial.suggest_categorical("family", self.families()))
             params = get_family(family).suggest(trial, self.fctx)
@@ -368,7 +421,7 @@ class Shard:
                 # probability calibration, fitted inside each training fold (inner 3-fold)
                 choices = calibrations(self.fctx.n_rows)
                 params[CALIBRATION] = str(trial.suggest_categorical(CALIBRATION, choices))
-        except Exception as exc:  # a broken search space: fail the trial, keep going
+        except Exception as exc:
             self.fail(
                 study,
                 trial,
@@ -376,49 +429,35 @@ class Shard:
                 f"{type(exc).__name__}: {exc}",
                 retry=False,
             )
-            return
-        row.update(family=family, params=params, ask_seconds=time.perf_counter() - a0)
-        with contextlib.suppress(Exception):  # cost units for the schedule (workers.schedule)
-            row["cost"] = float(get_family(family).cost(params, self.fctx))
-        self.ctx.doing.update(
-            job=self.job_id, shard=self.shard, trial=trial.number, family=family, since=time.time()
-        )
+            return None
+        return family, params
+
+    def _evaluate(
+        self,
+        study: optuna.Study,
+        trial: optuna.Trial,
+        row: dict[str, Any],
+        folds: _FoldProgress,
+    ) -> tuple[str, dict[str, Any]] | None:
+        """Run the candidate in the trial process under the trial's lease.
+
+        Returns ``(kind, result)``, or None when the trial failed (and was recorded so).
+        """
         request = self.ctx.request(
             self.job_id,
-            family=family,
-            params=params,
+            family=row["family"],
+            params=row["params"],
             seed=self.spec.seed,
             trial=trial.number,
             memory_mb=self.spec.memory_limit_mb,
         )
-        scores: list[float] = []
-        first_step = [0]  # 1 when the table is large enough for a row-halving rung
-
-        def on_fold(fold: int, score: float) -> bool:
-            if fold < 0:  # the rung: a fit on a row subsample, step 0 of the pruner
-                first_step[0] = 1
-                row["rung_score"] = score
-                trial.report(score, 0)
-            else:
-                scores.append(score)
-                trial.report(float(np.mean(scores)), fold + first_step[0])
-            if self.store.state(self.job_id) is JobState.CANCELLED:
-                row["note"] = "cancelled"
-                return False
-            if len(scores) >= self.spec.folds:
-                return True  # every fold is done: a complete trial is never pruned
-            if self.ctx.stop.is_set():  # SIGTERM: stop here, fail and retry it below
-                row["note"] = "worker_stop"
-                return False
-            return not trial.should_prune()
-
         lease_key = self.store.keys.trial_lease(self.job_id, trial._trial_id)
         timeout = self.trial_timeout()
         t_child = time.perf_counter()
         try:
             with Lease(self.ctx, lease_key, self.ctx.settings.lease_seconds):
                 kind, result = self.ctx.trials.request(
-                    "evaluate", request, timeout=timeout, on_fold=on_fold
+                    "evaluate", request, timeout=timeout, on_fold=folds.on_fold
                 )
             row["trial_process_seconds"] = time.perf_counter() - t_child
         except (ChildFailure, TrialCrashed) as exc:
@@ -427,16 +466,29 @@ class Shard:
                 self.log(f"trial {trial.number} traceback:\n{exc.trace}")
             if self.ctx.stop.is_set():
                 self.fail(study, trial, row, f"{SHUT_DOWN}; {detail}", retry=True, count=False)
-                return
+                return None
             timed_out = isinstance(exc, TrialCrashed) and exc.reason == "timeout"
             if timed_out and timeout < self.spec.trial_timeout:  # cut by the job's deadline
                 detail = f"stopped at the job's deadline after {timeout:.0f} s"
                 self.fail(study, trial, row, detail, retry=False, count=False)
-                return
+                return None
             if timed_out:
                 detail = f"timeout: ran past trial_timeout={self.spec.trial_timeout:g} s"
             self.fail(study, trial, row, detail, retry=True)
-            return
+            return None
+        return kind, result
+
+    def _settle(
+        self,
+        study: optuna.Study,
+        trial: optuna.Trial,
+        row: dict[str, Any],
+        outcome: tuple[str, dict[str, Any]],
+        folds: _FoldProgress,
+        busy0: float,
+    ) -> None:
+        """Tell the study and record the row of a trial the trial process finished."""
+        kind, result = outcome
         row.update(
             members=result.get("members", ""),
             size_bytes=result.get("size_bytes"),
@@ -445,8 +497,9 @@ class Shard:
             predict_ms=result["predict_ms"],
             fit_info=result["fit_info"],
             finished_at=time.time(),
-            seconds=time.time() - t0,
+            seconds=time.time() - row["started_at"],
         )
+        family = row["family"]
         if row.get("note") == "worker_stop":
             self.fail(study, trial, row, SHUT_DOWN, retry=True, count=False)
             return
@@ -471,8 +524,8 @@ class Shard:
                 return
             self.store.record_trial(self.job_id, row)
             where = (
-                f"after {len(scores)} folds"
-                if scores or not first_step[0]
+                f"after {len(folds.scores)} folds"
+                if folds.scores or not folds.rung
                 else f"at the row-halving rung (score {row['rung_score']:.5f})"
             )
             self.log(f"trial {trial.number} {family} pruned {where}")
