@@ -482,7 +482,7 @@ def test_docker_compose_keeps_redis_private_and_persistent() -> None:
     worker = services["worker"]
     wcmd = worker["command"]
     wwords = wcmd.split() if isinstance(wcmd, str) else [str(w) for w in wcmd]
-    assert wwords[:2] == ["tutti", "worker"]
+    assert wwords[:2] == ["tutti", "start-workers"]
     assert "ports" not in worker
     url = worker["environment"]["TUTTI_REDIS_URL"]
     assert url.startswith("redis://:${TUTTI_REDIS_PASSWORD}@redis:")
