@@ -30,20 +30,25 @@ def test_leakage_runs_before_the_search_when_explanations_get_no_time(
     rng = np.random.default_rng(0)
     frame["lab_result"] = frame["target"] + rng.uniform(0, 0.5, size=len(frame))
     frame["row_number"] = np.arange(len(frame))
+    # no time for explanations that fit models: the leakage checks must still have run
     job = client.submit(
-        frame, target="target", max_trials=2, families=["boosting"], seed=0, wall_seconds=240
+        frame,
+        target="target",
+        max_trials=2,
+        families=["boosting"],
+        seed=0,
+        wall_seconds=240,
+        explain_seconds=0,
     )
-    # explanations need at least 10^5 s: finalize must skip every part that fits models
-    never = {"TUTTI_EXPLAIN_MIN_SECONDS": "100000", "TUTTI_EXPLAIN_MAX_SECONDS": "100000"}
     log = tmp_path / "workers.log"
-    workers = start_workers(redis_url, prefix, 1, log=log, env=never)
+    workers = start_workers(redis_url, prefix, 1, log=log)
     try:
-        status = job.wait(timeout=300)
+        status = job.wait(timeout=300, explanations=True)
     finally:
         workers.wait(timeout=120)
     assert status["state"] == "finished", log.read_text()[-3000:]
-    explain = job.extras()["explain"]
-    assert {"significance", "bias_variance"} <= set(explain["skipped"])  # the setup held
+    parts = status["explain_parts"]
+    assert parts["significance"].startswith("not run") and parts["leakage"] == "done", parts
 
     stored = job.extras()["leakage"]["findings"]  # written by the first slice
     by_column = {f["column"]: f for f in stored}
@@ -53,7 +58,7 @@ def test_leakage_runs_before_the_search_when_explanations_get_no_time(
     data = collect(job)
     assert data["leakage"] == stored
     assert "leakage" not in data["not_run"]
-    assert "deadline left too little time" in data["not_run"]["bias_variance"]
+    assert "explain_seconds is 0" in data["not_run"]["bias_variance"]
     page = render_report(data)
     leakage = re.search(r'<section id="leakage">(.*?)</section>', page, re.DOTALL)
     assert leakage and "lab_result" in leakage.group(1)
