@@ -6,37 +6,14 @@
 exported pipelines are re-exported at one stable path, ``tuttiml.estimators``.
 """
 
-from tuttiml.service import (
-    ArtifactError,
-    EnsembleSearchError,
-    InvalidDataError,
-    InvalidSpecError,
-    JobNotFoundError,
-    Metric,
-    SearchSpec,
-    Task,
-)
+from tuttiml import service as _service
 from tuttiml.service.version import __version__
 
-__all__ = [
-    "ArtifactError",
-    "Client",
-    "EnsembleSearchError",
-    "InvalidDataError",
-    "InvalidSpecError",
-    "Job",
-    "JobNotFoundError",
-    "Metric",
-    "SearchSpec",
-    "Task",
-    "__version__",
-]
+# The public names are listed once, in service/__init__.py; Client and Job load lazily there.
+__all__ = [*_service.__all__, "__version__"]
 
 
 def __getattr__(name: str) -> object:
-    # Client pulls in redis and rq; keep `import tuttiml` light for spec-only users.
-    if name in ("Client", "Job"):
-        from tuttiml.service import client
-
-        return getattr(client, name)
+    if name in _service.__all__:
+        return getattr(_service, name)
     raise AttributeError(name)

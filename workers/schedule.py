@@ -334,10 +334,8 @@ def portfolio_trials(
 
 
 def _learned_portfolio(task: str, families: Sequence[str]) -> list[tuple[str, dict[str, Any]]]:
-    try:
-        from tuttiml.workers.portfolio import portfolio_for
-    except ImportError:  # not installed: the caller falls back to the defaults
-        return []
+    from tuttiml.workers.portfolio import portfolio_for
+
     out = []
     for entry in portfolio_for(task, list(families)):
         params = dict(entry)
