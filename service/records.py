@@ -10,9 +10,9 @@ them at the presentation edge only.
 
 from __future__ import annotations
 
-from typing import Any, ClassVar, Self
+from typing import Any, ClassVar, Literal, Self
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, field_validator
 
 
 class Record(BaseModel):
@@ -30,6 +30,18 @@ class Record(BaseModel):
     def load(cls, data: dict[str, Any]) -> Self:
         """Validate stored data (records from before versioning load as version 1)."""
         return cls.model_validate(data)
+
+
+class SparseRecord(Record):
+    """A record written piece by piece: only the fields a writer set are stored.
+
+    A trial row stays without a score when the trial failed, and the job's result hash gets
+    its fields from several writers (search, finalize, explanations), so a dump never blanks
+    what another writer stored. ``schema_version`` is always written.
+    """
+
+    def dump(self) -> dict[str, Any]:
+        return {**self.model_dump(mode="json", exclude_unset=True), "schema_version": self.VERSION}
 
 
 class Part(BaseModel):
@@ -87,4 +99,164 @@ class TableSummary(Record):
         return self.model_dump(mode="json", by_alias=True)
 
 
-__all__ = ["ClassShare", "FeatureColumns", "Part", "Record", "TableSummary", "TargetStats"]
+# ---------------------------------------------------------------------------- trial row
+
+
+class TrialRow(SparseRecord):
+    """One finished trial (complete, pruned or failed) as a worker stores it.
+
+    Written by the shard (``workers/search.py``) and the reaper (``workers/leases.py``), read
+    by the leaderboard, ``Job.trials()``, the report and finalize. ``score`` and
+    ``fold_scores`` are greater-is-better; fields the trial never reached are left out.
+    """
+
+    number: int = Field(ge=0)
+    state: Literal["complete", "pruned", "failed"]
+    family: str
+    params: dict[str, Any] = {}
+    retry_of: int | None = None
+    retries: int = Field(default=0, ge=0)
+    reaped: bool = False
+    shard: int | None = None
+    worker: str | None = None
+    arm: str | None = None
+    started_at: float | None = None
+    finished_at: float | None = None
+    score: float | None = None
+    score_std: float = 0.0
+    fold_scores: list[float] = []
+    rung_score: float | None = None
+    members: str = ""
+    size_bytes: int | None = None
+    fit_seconds: float = 0.0
+    predict_ms: float = 0.0
+    fit_info: list[dict[str, int]] = []
+    cost: float | None = None
+    seconds: float | None = None
+    ask_seconds: float | None = None
+    trial_process_seconds: float | None = None
+    tell_seconds: float | None = None
+    journal_seconds: float | None = None
+    note: str | None = None
+    error: str | None = None
+
+
+# ---------------------------------------------------------------------------- library
+
+
+class Combiner(Part):
+    """How a library ensemble combines its members' predictions in the exported pipeline."""
+
+    mode: Literal["average", "linear", "logistic"]
+    weights: list[float] | None = None
+    coef: list[float] | list[list[float]] | None = None
+    intercept: float | list[float] | None = None
+
+
+class LibraryRecord(Record):
+    """One library ensemble over stored out-of-fold predictions (``workers/library.py``).
+
+    Built in the trial process, stored under the job's result ``library`` (during the search
+    by ``workers/composites.py``, finally by finalize), read by the leaderboard, finalize and
+    the explanations. ``score`` is the nested (honest) score, greater-is-better.
+    """
+
+    id: str
+    method: str
+    members: list[int]
+    weights: list[float] | None = None
+    score: float
+    score_std: float = 0.0
+    fold_scores: list[float] = []
+    in_sample_score: float | None = None
+    combiner: Combiner | None = None
+    during_search: bool = False
+    trial_optimism: float = 0.0
+
+
+# ---------------------------------------------------------------------------- final result
+
+
+class Winner(Part):
+    """The candidate behind the exported pipeline (``score`` greater-is-better)."""
+
+    id: str
+    kind: Literal["trial", "library"]
+    family: str
+    score: float
+
+
+class Selection(Part):
+    """BBC-CV of picking the best kept candidate, computed once per finalize.
+
+    Greater-is-better; ``optimism`` is what the best trial's CV score overstates.
+    """
+
+    estimate: float
+    ci_low: float
+    ci_high: float
+    winner_cv: float
+    optimism: float
+    n_boot: int = Field(ge=0)
+    n_candidates: int = Field(ge=0)
+    rows: int | None = None
+
+
+class ParetoPoint(Part):
+    """A trial on the score versus predict-latency plot.
+
+    NOTE: ``score`` is stored in the metric's natural sign (as jobs have stored it so far).
+    """
+
+    candidate: str
+    score: float
+    predict_ms: float
+    on_front: bool
+
+
+class FinalResult(SparseRecord):
+    """The job's result hash (the store's *extras*): what finalize commits and others add.
+
+    Finalize writes the winner, the library, the selection estimate, the hold-out score and
+    its timings; the first search slice adds ``leakage``, the search's library refreshes
+    ``library``, the explanation task ``pareto``, ``explain`` and a late ``selection``. Each
+    writer stores only the fields it sets. ``holdout_score`` and the Pareto scores are in the
+    metric's natural sign (as stored so far); every other score is greater-is-better.
+    """
+
+    library: list[LibraryRecord] = []
+    best: Winner | None = None
+    trial_optimism: float = 0.0
+    selection: Selection | None = None
+    holdout_score: float | None = None
+    finalize_seconds: float | None = None
+    library_seconds: float | None = None
+    refit_errors: list[str] = []
+    passed_over_for_time: list[str] = []
+    pareto: list[ParetoPoint] = []
+    leakage: dict[str, Any] | None = None
+    explain: dict[str, Any] | None = None
+
+    @field_validator("selection", mode="before")
+    @classmethod
+    def _no_selection(cls, value: Any) -> Any:
+        """``{}`` (stored when there was nothing to pick from) reads as no selection."""
+        return None if value == {} else value
+
+
+__all__ = [
+    "ClassShare",
+    "Combiner",
+    "FeatureColumns",
+    "FinalResult",
+    "LibraryRecord",
+    "ParetoPoint",
+    "Part",
+    "Record",
+    "Selection",
+    "SparseRecord",
+    "TableSummary",
+    "TargetStats",
+    "TrialRow",
+    "Winner",
+]
