@@ -17,6 +17,7 @@ import _common
 import numpy as np
 from tuttiml.service.client import Client
 from tuttiml.service.keys import Keys
+from tuttiml.service.records import TrialRow
 from tuttiml.service.store import JobStore
 
 
@@ -59,7 +60,7 @@ def main() -> None:
             buf = io.BytesIO()
             np.save(buf, rng.random((1000, 2)).astype(np.float32), allow_pickle=False)
             oof = buf.getvalue()
-            store.record_trial(job_id, row, oof=oof, library_size=5)
+            store.record_trial(job_id, TrialRow(**row), oof=oof, library_size=5)
         fresh = Client(url=server.url, prefix=prefix)
         job = fresh.job(job_id)
         t0 = time.perf_counter()

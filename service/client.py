@@ -20,6 +20,7 @@ from tuttiml.service.errors import ArtifactError, JobStateError
 from tuttiml.service.explanations import PARTS, ExplainState, PartStatus, part_status
 from tuttiml.service.keys import Keys, check_id
 from tuttiml.service.queue import TaskQueue
+from tuttiml.service.records import FinalResult, TrialRow
 from tuttiml.service.spec import Metric, SearchSpec, natural, parse_spec, score_sign
 from tuttiml.service.store import JobState, JobStore
 
@@ -361,7 +362,7 @@ class Job:
         if state is None or rec.get("committed_epoch") is None:
             return {"explanations": None, "explain_budget": None, "explain_parts": {}}
         if rec.get("explain_epoch") == rec.get("committed_epoch"):
-            parts = part_status(self.store.extras(self.id).get("explain"))
+            parts = part_status(self.result().explain)
         else:
             parts = {name: PartStatus.PENDING.value for name in PARTS}
         budget = rec.get("explain_budget")
@@ -452,15 +453,18 @@ class Job:
 
         ``score`` and ``fold_scores`` are in the metric's natural sign, as on the leaderboard.
         """
-        rows = self.store.trial_rows(self.id)
+        rows = [TrialRow.load(r) for r in self.store.trial_rows(self.id)]
         metric = self.spec().metric
-        if metric is not None:
-            for r in rows:
-                if r.get("score") is not None:
-                    r["score"] = natural(metric, r["score"])
-                if r.get("fold_scores"):
-                    r["fold_scores"] = [natural(metric, f) for f in r["fold_scores"]]
-        return pd.DataFrame(rows)
+        docs = []
+        for r in rows:
+            doc = r.dump()
+            doc.pop("schema_version")
+            if metric is not None and r.score is not None:
+                doc["score"] = natural(metric, r.score)
+            if metric is not None and r.fold_scores:
+                doc["fold_scores"] = [natural(metric, f) for f in r.fold_scores]
+            docs.append(doc)
+        return pd.DataFrame(docs)
 
     def leaderboard(self) -> pd.DataFrame:
         """Complete candidates best first: trials and library ensembles, natural metric sign.
@@ -476,31 +480,31 @@ class Job:
         spec = SearchSpec.model_validate(rec["spec"])
         metric = Metric(spec.metric) if spec.metric else Metric.ROC_AUC
         rows = []
-        for r in self.store.board(self.id):
+        for r in (TrialRow.load(doc) for doc in self.store.board(self.id)):
             rows.append(
                 {
-                    "candidate": f"t{r['number']}",
-                    "family": r["family"],
-                    "members": _members(r),
-                    "score": float(r["score"]),
-                    "score_std": float(r.get("score_std", 0.0)),
-                    "folds": len(r.get("fold_scores", [])),
-                    "fit_seconds": float(r.get("fit_seconds", 0.0)),
-                    "predict_ms": float(r.get("predict_ms", 0.0)),
-                    "size_bytes": r.get("size_bytes"),
-                    "trial": int(r["number"]),
+                    "candidate": f"t{r.number}",
+                    "family": r.family,
+                    "members": r.members,
+                    "score": r.score,
+                    "score_std": r.score_std,
+                    "folds": len(r.fold_scores),
+                    "fit_seconds": r.fit_seconds,
+                    "predict_ms": r.predict_ms,
+                    "size_bytes": r.size_bytes,
+                    "trial": r.number,
                 }
             )
-        extras = self.store.extras(self.id)
-        for ens in extras.get("library", []):
+        result = self.result()
+        for ens in result.library:
             rows.append(
                 {
-                    "candidate": ens["id"],
-                    "family": f"library:{ens['method']}",
-                    "members": ",".join(f"t{m}" for m in ens["members"]),
-                    "score": float(ens["score"]),
-                    "score_std": float(ens.get("score_std", 0.0)),
-                    "folds": len(ens.get("fold_scores", [])),
+                    "candidate": ens.id,
+                    "family": f"library:{ens.method}",
+                    "members": ",".join(f"t{m}" for m in ens.members),
+                    "score": ens.score,
+                    "score_std": ens.score_std,
+                    "folds": len(ens.fold_scores),
                     "fit_seconds": None,
                     "predict_ms": None,
                     "size_bytes": None,
@@ -518,12 +522,11 @@ class Job:
             board.insert(0, "rank", range(1, len(board) + 1))
             # the exported pipeline: trials compete with library ensembles after their
             # selection optimism is taken off, so it need not be rank 1
-            best = (extras.get("best") or {}).get("id")
-            board["exported"] = board["candidate"] == best
+            board["exported"] = board["candidate"] == (result.best.id if result.best else None)
             board = board[cols].reset_index(drop=True)
             for col in ("trial", "size_bytes"):  # whole numbers, missing for library rows
                 board[col] = board[col].astype("Int64")
-            board = _with_explanations(board, extras.get("explain") or {})
+            board = _with_explanations(board, result.explain or {})
         board.attrs.update(
             metric=metric.value,
             greater_is_better=score_sign(metric) > 0,
@@ -593,7 +596,12 @@ class Job:
         return out
 
     def extras(self) -> dict[str, Any]:
+        """The job's result hash as stored (JSON); :meth:`result` is the typed record."""
         return self.store.extras(self.id)
+
+    def result(self) -> FinalResult:
+        """The job's result: winner, library ensembles, honest estimate, explanations."""
+        return FinalResult.load(self.store.extras(self.id))
 
     def logs(self) -> list[str]:
         return self.store.logs(self.id)
@@ -697,10 +705,6 @@ def _with_explanations(board: pd.DataFrame, explain: dict[str, Any]) -> pd.DataF
     if not bv.empty:
         board = board.merge(bv[["candidate", "bias", "variance"]], on="candidate", how="left")
     return board
-
-
-def _members(row: dict[str, Any]) -> str:
-    return str(row.get("members") or "")
 
 
 def progress_line(st: dict[str, Any]) -> str:

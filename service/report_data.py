@@ -6,7 +6,7 @@ from typing import Any, Protocol
 
 import pandas as pd
 from tuttiml.service.explanations import PARTS, ExplainState, part_status, ran, state_of
-from tuttiml.service.records import TableSummary
+from tuttiml.service.records import FinalResult, TableSummary, TrialRow
 from tuttiml.service.spec import Metric, natural, score_sign
 from tuttiml.service.store import JobStore
 from tuttiml.service.version import __version__
@@ -19,7 +19,7 @@ class JobView(Protocol):
     store: JobStore
 
     def record(self) -> dict[str, Any]: ...
-    def extras(self) -> dict[str, Any]: ...
+    def result(self) -> FinalResult: ...
     def leaderboard(self) -> pd.DataFrame: ...
     def artifact_meta(self) -> dict[str, Any]: ...
 
@@ -28,19 +28,19 @@ class JobView(Protocol):
 DISAGREE = 0.05
 
 
-def _selection(extras: dict[str, Any], metric: Metric) -> dict[str, Any]:
+def _selection(result: FinalResult, metric: Metric) -> dict[str, Any]:
     """Finalize's one BBC-CV of the winner (stored greater-is-better) in the natural sign."""
-    sel = extras.get("selection")
-    if not sel:  # jobs explained inside finalize kept it with the explanations
-        return dict((extras.get("explain") or {}).get("honest") or {})
-    lo, hi = sorted((natural(metric, sel["ci_low"]), natural(metric, sel["ci_high"])))
+    sel = result.selection
+    if sel is None:  # jobs explained inside finalize kept it with the explanations
+        return dict((result.explain or {}).get("honest") or {})
+    lo, hi = sorted((natural(metric, sel.ci_low), natural(metric, sel.ci_high)))
     return {
-        "winner_cv": natural(metric, sel["winner_cv"]),
-        "bbc_estimate": natural(metric, sel["estimate"]),
+        "winner_cv": natural(metric, sel.winner_cv),
+        "bbc_estimate": natural(metric, sel.estimate),
         "bbc_low": lo,
         "bbc_high": hi,
-        "n_candidates": sel.get("n_candidates"),
-        "n_boot": sel.get("n_boot"),
+        "n_candidates": sel.n_candidates,
+        "n_boot": sel.n_boot,
     }
 
 
@@ -58,9 +58,9 @@ def _explanations(explain: dict[str, Any]) -> dict[str, Any] | None:
     }
 
 
-def _honest(extras: dict[str, Any], metric: Metric) -> dict[str, Any]:
-    honest = _selection(extras, metric)
-    holdout = extras.get("holdout_score")
+def _honest(result: FinalResult, metric: Metric) -> dict[str, Any]:
+    honest = _selection(result, metric)
+    holdout = result.holdout_score  # stored in the natural sign (see FinalResult)
     if holdout is not None:
         honest["holdout"] = holdout
         est = honest.get("bbc_estimate", honest.get("winner_cv"))
@@ -77,10 +77,10 @@ def _honest(extras: dict[str, Any], metric: Metric) -> dict[str, Any]:
 EXPLAIN_PARTS = ("honest", "significance", "bias_variance", "composites")
 
 
-def _leakage(rec: dict[str, Any], extras: dict[str, Any]) -> tuple[list[Any] | None, str]:
+def _leakage(rec: dict[str, Any], result: FinalResult) -> tuple[list[Any] | None, str]:
     """What the leakage checks found, or None and why they did not run."""
-    stored = extras.get("leakage")  # written by the first search slice, before any trial
-    explain = extras.get("explain") or {}
+    stored = result.leakage  # written by the first search slice, before any trial
+    explain = result.explain or {}
     if isinstance(stored, dict) and "findings" in stored:
         return list(stored["findings"]), ""
     if isinstance(stored, dict) and stored.get("error"):
@@ -132,10 +132,10 @@ def _explain_gaps(rec: dict[str, Any], explain: dict[str, Any]) -> dict[str, str
 def collect(job: JobView) -> dict[str, Any]:
     """The report's input for ``job`` (see the schema in ``service.report``)."""
     rec = job.record()
-    extras = job.extras()
+    result = job.result()
     board = job.leaderboard()
     metric = Metric(board.attrs["metric"])
-    explain = extras.get("explain") or {}
+    explain = result.explain or {}
     sig = {r["candidate"]: r for r in explain.get("significance") or []}
     leaderboard = []
     for _, r in board.iterrows():
@@ -161,13 +161,13 @@ def collect(job: JobView) -> dict[str, Any]:
         leaderboard.append(row)
     trials = [
         {
-            "number": t["number"],
-            "family": t.get("family"),
-            "state": t.get("state"),
-            "score": natural(metric, t.get("score")),
-            "finished_at": t.get("finished_at"),
+            "number": t.number,
+            "family": t.family,
+            "state": t.state,
+            "score": natural(metric, t.score),
+            "finished_at": t.finished_at,
         }
-        for t in job.store.trial_rows(job.id)
+        for t in (TrialRow.load(doc) for doc in job.store.trial_rows(job.id))
     ]
     try:
         meta = job.artifact_meta()
@@ -175,9 +175,9 @@ def collect(job: JobView) -> dict[str, Any]:
     except Exception:
         versions = {"tutti": __version__}
     summary = TableSummary.load(rec["summary"]).dump() if rec.get("summary") else {}
-    leakage, leakage_gap = _leakage(rec, extras)
+    leakage, leakage_gap = _leakage(rec, result)
     not_run = _explain_gaps(rec, explain)
-    if state_of(explain) is not None and not extras.get("selection"):
+    if state_of(explain) is not None and result.selection is None:
         not_run["honest"] = (
             "pending: computed after the model is committed"
             if state_of(explain) in (ExplainState.PENDING, ExplainState.RUNNING)
@@ -199,10 +199,10 @@ def collect(job: JobView) -> dict[str, Any]:
         "summary": summary,
         "leaderboard": leaderboard,
         "trials": trials,
-        "honest": _honest(extras, metric),
+        "honest": _honest(result, metric),
         "explanations": _explanations(explain),
         "bias_variance": explain.get("bias_variance") or [],
-        "pareto": extras.get("pareto") or []
+        "pareto": [p.model_dump(mode="json") for p in result.pareto]
         if state_of(explain) is None or ran(explain, "pareto")
         else [],
         "ensembles": (explain.get("ensembles") or []) + (explain.get("composites") or []),

@@ -15,6 +15,7 @@ from typing import Any
 import redis
 from tuttiml.service.errors import InvalidDataError, JobNotFoundError, JobStateError
 from tuttiml.service.keys import Keys, check_id
+from tuttiml.service.records import TrialRow
 from tuttiml.service.states import _PHASE, _RECORD, _TICKET, _TRANSITION, TRANSITIONS, JobState
 
 CHUNK_BYTES = 64 * 1024 * 1024  # one Redis string holds at most 512 MB
@@ -357,15 +358,14 @@ class JobStore:
     def record_trial(
         self,
         job_id: str,
-        row: dict[str, Any],
+        row: TrialRow,
         *,
         oof: bytes | None = None,
         library_size: int = 0,
     ) -> None:
         """Store a finished trial's row; complete ones join the board and maybe the library."""
-        number = int(row["number"])
-        score = row.get("score") if row.get("state") == "complete" else None
-        family = str(row.get("family", "unknown"))
+        number, family = row.number, row.family
+        score = row.score if row.state == "complete" else None
         self._record(
             keys=[
                 self.keys.trials(job_id),
@@ -376,21 +376,22 @@ class JobStore:
             ],
             args=[
                 number,
-                json.dumps(row),
+                json.dumps(row.dump()),
                 "" if score is None else repr(float(score)),
                 oof or b"",
                 library_size,
                 self.keys.oof(job_id, 0)[:-1],
-                str(row.get("state", "failed")),
+                row.state,
             ],
         )
 
     def trial_rows(self, job_id: str) -> list[dict[str, Any]]:
+        """Every stored trial row (a ``TrialRow`` dump), by trial number."""
         rows = [json.loads(v) for v in self._r.hvals(self.keys.trials(job_id))]
         return sorted(rows, key=lambda r: int(r["number"]))
 
     def board(self, job_id: str, limit: int = -1) -> list[dict[str, Any]]:
-        """Complete trials, best first (ties broken by trial number)."""
+        """Complete trials' rows (``TrialRow`` dumps), best first (ties by trial number)."""
         ids = self._r.zrevrange(
             self.keys.board(job_id), 0, limit if limit < 0 else limit - 1, withscores=True
         )

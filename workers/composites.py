@@ -19,8 +19,8 @@ from __future__ import annotations
 import logging
 import time
 from collections.abc import Callable, Sequence
-from typing import Any
 
+from tuttiml.service.records import LibraryRecord
 from tuttiml.service.store import JobState
 from tuttiml.workers.child import ChildFailure, TrialCrashed
 from tuttiml.workers.context import WorkerContext
@@ -79,7 +79,7 @@ class LibraryRefresher:
         last_at = float(rec.get("library_at", 0.0) or 0.0)
         return done >= max(last_n + EVERY_TRIALS, 2) and time.time() - last_at >= EVERY_SECONDS
 
-    def maybe_refresh(self) -> list[dict[str, Any]] | None:
+    def maybe_refresh(self) -> list[LibraryRecord] | None:
         """Refresh if due and no other shard is at it; returns the stored composites."""
         if not self.due():
             return None
@@ -92,7 +92,7 @@ class LibraryRefresher:
             self.spent += time.monotonic() - t0
             self.store.release(self.job_id, "library", self.ctx.name)
 
-    def refresh(self) -> list[dict[str, Any]] | None:
+    def refresh(self) -> list[LibraryRecord] | None:
         """Build the composites now and store them where the leaderboard reads them."""
         n_before = int(self.store.job(self.job_id).get("n_complete", 0) or 0)
         t0 = time.time()
@@ -103,15 +103,17 @@ class LibraryRefresher:
             self.log_line(f"library refresh skipped: {exc}")
             self.store.set_fields(self.job_id, library_n=n_before, library_at=repr(time.time()))
             return None
-        library = [dict(doc, during_search=True) for doc in result]
+        library = [
+            LibraryRecord.load(doc).model_copy(update={"during_search": True}) for doc in result
+        ]
         if self.store.state(self.job_id) is not JobState.RUNNING:
             return None  # finalize owns the library from here on
-        self.store.set_extra(self.job_id, "library", library)
+        self.store.set_extra(self.job_id, "library", [ens.dump() for ens in library])
         self.store.set_fields(self.job_id, library_n=n_before, library_at=repr(time.time()))
         if library:
-            best = max(library, key=lambda d: float(d["score"]))
+            best = max(library, key=lambda ens: ens.score)
             self.log_line(
                 f"library composites refreshed over {n_before} trials in "
-                f"{time.time() - t0:.1f} s: best {best['id']} score={float(best['score']):.5f}"
+                f"{time.time() - t0:.1f} s: best {best.id} score={best.score:.5f}"
             )
         return library

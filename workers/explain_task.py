@@ -21,6 +21,7 @@ from tuttiml.service.explanations import (
     PartStatus,
     not_run_record,
 )
+from tuttiml.service.records import FinalResult, LibraryRecord, ParetoPoint, TrialRow
 from tuttiml.service.spec import natural
 from tuttiml.service.store import JobState
 from tuttiml.workers.child import ChildFailure, TrialCrashed
@@ -66,8 +67,8 @@ class Explainer:
 
     def run(self) -> str:
         rec = self.store.job(self.job_id)
-        extras = self.store.extras(self.job_id)
-        pending = extras.get("explain") or {}
+        result = FinalResult.load(self.store.extras(self.job_id))
+        pending = result.explain or {}
         if str(rec.get("committed_epoch")) != self.epoch or pending.get("epoch") != self.epoch:
             return "nothing to explain"
         budget = float(pending.get("budget_seconds") or 0.0)
@@ -83,10 +84,11 @@ class Explainer:
         self.log(f"start (attempt {attempt}, budget {budget:.0f} s)")
         t0 = time.monotonic()
         more: dict[str, Any] = {}
-        if not extras.get("selection") and self.spec.library_size > 0:
+        if result.selection is None and self.spec.library_size > 0:
             more["selection"] = self.fin.selection()  # finalize had no time for it
-        doc, artifacts, pareto = self.explain(budget, extras, t0)
-        return self.commit(doc, artifacts=artifacts, extras={"pareto": pareto, **more})
+        doc, artifacts, pareto = self.explain(budget, result, t0)
+        added = FinalResult(pareto=pareto, **more)
+        return self.commit(doc, artifacts=artifacts, extras=added.dump())
 
     def commit(
         self,
@@ -103,13 +105,13 @@ class Explainer:
 
     # ------------------------------------------------------------------ the parts
     def explain(
-        self, budget: float, extras: dict[str, Any], t0: float
-    ) -> tuple[dict[str, Any], dict[str, tuple[bytes, dict[str, Any]]], list[dict[str, Any]]]:
+        self, budget: float, result: FinalResult, t0: float
+    ) -> tuple[dict[str, Any], dict[str, tuple[bytes, dict[str, Any]]], list[ParetoPoint]]:
         """Every part within ``budget`` seconds from ``t0`` (monotonic): the record, the Pareto
         refits and points."""
         end = self.end = t0 + budget - min(COMMIT_RESERVE, budget / 10)
-        board = self.store.board(self.job_id)
-        library = list(extras.get("library") or [])
+        board = [TrialRow.load(r) for r in self.store.board(self.job_id)]
+        library: list[LibraryRecord] = result.library
         candidates = self.fin.candidates(board, library) if board else []
         top = [
             {
@@ -124,8 +126,8 @@ class Explainer:
         common = {
             "families": list(self.spec.family_names),
             "top": top,
-            "library": library,
-            "scores": {str(r["number"]): float(r["score"]) for r in board},
+            "library": [ens.dump() for ens in library],
+            "scores": {str(r.number): float(r.score or 0.0) for r in board},
             "dropped": self.fin.record.get("dropped") or {},
         }
         doc: dict[str, Any] = {
@@ -139,19 +141,19 @@ class Explainer:
         hard = ENSEMBLES_TIMEOUT if budget <= 0 else min(ENSEMBLES_TIMEOUT, end - time.monotonic())
         doc["ensembles"] = self.part(doc, "ensembles", common, 0.0, max(hard, 0.5))
         artifacts: dict[str, tuple[bytes, dict[str, Any]]] = {}
-        pareto: list[dict[str, Any]] = []
+        pareto: list[ParetoPoint] = []
         names = list(SHARES)
         for i, name in enumerate(names):
             left = end - time.monotonic()
             slot = left * SHARES[name] / sum(SHARES[n] for n in names[i:])
-            if name == "leakage" and "findings" in (extras.get("leakage") or {}):
+            if name == "leakage" and "findings" in (result.leakage or {}):
                 doc["parts"][name] = {"status": PartStatus.DONE.value, "before_search": True}
             elif budget <= 0:
                 self.not_run(doc, name, "explain_seconds is 0")
             elif slot < 0.5:
                 self.not_run(doc, name, f"no time left of the {budget:.0f} s budget")
             elif name == "pareto":
-                best = str((extras.get("best") or {}).get("id", ""))
+                best = result.best.id if result.best else ""
                 pareto = self.pareto(doc, candidates, board, best, artifacts, slot)
             else:
                 doc[name] = self.part(doc, name, common, INNER * slot, slot)
@@ -211,11 +213,11 @@ class Explainer:
         self,
         doc: dict[str, Any],
         candidates: list[dict[str, Any]],
-        board: list[dict[str, Any]],
+        board: list[TrialRow],
         best: str,
         artifacts: dict[str, tuple[bytes, dict[str, Any]]],
         seconds: float,
-    ) -> list[dict[str, Any]]:
+    ) -> list[ParetoPoint]:
         """Score vs predict latency front; its best few members are refitted while time allows.
 
         A refit starts only when its estimated time (fold-fit seconds ÷ (folds − 1), doubled)
@@ -226,16 +228,12 @@ class Explainer:
         t = time.monotonic()
         end = t + seconds
         points = [
-            {
-                "id": f"t{r['number']}",
-                "score": float(r["score"]),
-                "predict_ms": float(r.get("predict_ms", float("nan"))),
-            }
+            {"id": f"t{r.number}", "score": float(r.score or 0.0), "predict_ms": r.predict_ms}
             for r in board
         ]
         front = set(pareto_front(points))
         by_id = {c["id"]: c for c in candidates}
-        rows = {f"t{r['number']}": r for r in board}
+        rows = {f"t{r.number}": r for r in board}
         refits, skipped = 0, 0
         for p in sorted(points, key=lambda q: -q["score"]):
             if p["id"] not in front or p["id"] == best or refits >= PARETO_REFITS:
@@ -255,13 +253,13 @@ class Explainer:
             "refits": refits,
             "refits_skipped_for_time": skipped,
         }
-        return [
-            {
-                "candidate": p["id"],
-                "score": natural(self.spec.metric, p["score"]),
-                "predict_ms": p["predict_ms"],
-                "on_front": p["id"] in front,
-            }
+        return [  # NOTE: stored in the natural sign, as jobs have stored it so far
+            ParetoPoint(
+                candidate=p["id"],
+                score=natural(self.spec.metric, p["score"]),
+                predict_ms=p["predict_ms"],
+                on_front=p["id"] in front,
+            )
             for p in points
         ]
 

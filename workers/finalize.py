@@ -18,6 +18,7 @@ from typing import Any
 
 from tuttiml.service.artifacts import seal
 from tuttiml.service.explanations import default_budget, pending_record
+from tuttiml.service.records import FinalResult, LibraryRecord, Selection, TrialRow, Winner
 from tuttiml.service.spec import SearchSpec
 from tuttiml.service.store import JobState
 from tuttiml.service.trusted import TRUSTED_TYPES
@@ -49,13 +50,13 @@ def versions() -> dict[str, str]:
     }
 
 
-def refit_seconds(rows: Iterable[dict[str, Any]], folds: int) -> float:
+def refit_seconds(rows: Iterable[TrialRow], folds: int) -> float:
     """Estimated seconds to refit these trials on all rows, one after the other.
 
     A trial's ``fit_seconds`` sums its fold fits, each on (folds − 1)/folds of the rows, so
     one all-rows refit is about that sum ÷ (folds − 1).
     """
-    return sum(float(r.get("fit_seconds") or 0.0) for r in rows) / max(folds - 1, 1)
+    return sum(r.fit_seconds for r in rows) / max(folds - 1, 1)
 
 
 def explain_timeout(budget: float, spec: SearchSpec) -> float:
@@ -63,9 +64,9 @@ def explain_timeout(budget: float, spec: SearchSpec) -> float:
     return budget + max(4 * spec.trial_timeout, 600.0) + 60.0
 
 
-def trial_optimism(library: list[dict[str, Any]]) -> float:
+def trial_optimism(library: list[LibraryRecord]) -> float:
     """BBC-CV optimism of picking the best trial, as the library step reported it (0 if none)."""
-    return max((float(e.get("trial_optimism", 0.0)) for e in library), default=0.0)
+    return max((e.trial_optimism for e in library), default=0.0)
 
 
 class Finalizer:
@@ -104,12 +105,12 @@ class Finalizer:
             )
         t0 = time.time()
         self.phase("started")
-        board = self.store.board(self.job_id)
+        board = [TrialRow.load(r) for r in self.store.board(self.job_id)]
         if not board:
             return self.commit_empty(final)
         t_lib = time.time()
-        library: list[dict[str, Any]] = []
-        selection: dict[str, Any] = {}
+        library: list[LibraryRecord] = []
+        selection: Selection | None = None
         if self.library_in_time(board):
             self.phase(f"library ensembles over {len(board)} candidates")
             library = self.library_ensembles(board)
@@ -117,8 +118,9 @@ class Finalizer:
             selection = self.selection()  # else the explanations compute it, after the commit
         else:  # no time to rebuild: the composites the search built (workers.composites)
             library = self.search_library(board)
-        for ens in library:  # what the best trial's CV score overstates (like with like)
-            ens["trial_optimism"] = max(float(selection.get("optimism", 0.0)), 0.0)
+        optimism = max(selection.optimism, 0.0) if selection else 0.0
+        # what the best trial's CV score overstates (like with like)
+        library = [ens.model_copy(update={"trial_optimism": optimism}) for ens in library]
         library_seconds = time.time() - t_lib
         candidates = self.candidates(board, library)
         candidates, over_time = self.affordable(candidates, board)
@@ -140,31 +142,31 @@ class Finalizer:
                 self.job_id,
                 self.epoch,
                 artifacts={},
-                extras={"library": library, "refit_errors": errors},
+                extras=FinalResult(library=library, refit_errors=errors).dump(),
                 state=JobState.FAILED,
                 reason=reason,
             )
             return "failed" if ok else "duplicate"
         meta = artifacts["best"][1]
         budget = self.explain_budget(t0)
-        extras = {
-            "library": library,
-            "best": {k: chosen[k] for k in ("id", "kind", "family", "score")},
-            "trial_optimism": trial_optimism(library),
-            "holdout_score": meta.get("holdout_score"),
-            "finalize_seconds": time.time() - t0,
-            "library_seconds": library_seconds,
-            "refit_errors": errors,
-            "passed_over_for_time": over_time,
-            "selection": selection,
-            "explain": pending_record(self.epoch, budget),
-        }
+        result = FinalResult(
+            library=library,
+            best=Winner(**{k: chosen[k] for k in ("id", "kind", "family", "score")}),
+            trial_optimism=trial_optimism(library),
+            holdout_score=meta.get("holdout_score"),
+            finalize_seconds=time.time() - t0,
+            library_seconds=library_seconds,
+            refit_errors=errors,
+            passed_over_for_time=over_time,
+            selection=selection,
+            explain=pending_record(self.epoch, budget),
+        )
         self.phase("saving the result")
         ok = self.store.commit_final(
             self.job_id,
             self.epoch,
             artifacts=artifacts,
-            extras=extras,
+            extras=result.dump(),
             state=final,
             fields={"explain_state": "pending", "explain_budget": repr(budget)},
         )
@@ -173,20 +175,20 @@ class Finalizer:
             self.ctx.queue.enqueue_explain(self.job_id, timeout=explain_timeout(budget, self.spec))
         return "committed" if ok else "duplicate"
 
-    def search_library(self, board: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    def search_library(self, board: list[TrialRow]) -> list[LibraryRecord]:
         """The library ensembles last built during the search, if all their members are on
         the board (scored the same honest way; they may miss the last few trials)."""
-        numbers = {int(r["number"]) for r in board}
+        numbers = {r.number for r in board}
         out = [
-            doc
-            for doc in self.store.extras(self.job_id).get("library") or []
-            if doc.get("during_search") and {int(m) for m in doc["members"]} <= numbers
+            ens
+            for ens in FinalResult.load(self.store.extras(self.job_id)).library
+            if ens.during_search and set(ens.members) <= numbers
         ]
         if out:
             self.log(f"library ensembles from the search reused: {len(out)}")
         return out
 
-    def library_in_time(self, board: list[dict[str, Any]]) -> bool:
+    def library_in_time(self, board: list[TrialRow]) -> bool:
         """Whether the time left before the deadline covers library ensembles (about
         ``LIBRARY_SECONDS``) plus the best trial's refit (estimated, doubled): the model is due
         at the deadline, so a late finalize goes straight to refitting the best trial."""
@@ -210,23 +212,23 @@ class Finalizer:
             max_seconds=self.ctx.settings.explain_max_seconds,
         )
 
-    def selection(self) -> dict[str, Any]:
-        """BBC-CV of picking the best kept candidate (greater-is-better; {} when none)."""
+    def selection(self) -> Selection | None:
+        """BBC-CV of picking the best kept candidate (greater-is-better; None when none)."""
         if self.spec.library_size <= 0:
-            return {}
+            return None
         try:
             _, out = self.ctx.trials.request(
                 "selection",
                 self.request(families=list(self.spec.family_names)),
                 timeout=max(self.spec.trial_timeout, 300.0),
             )
-            return dict(out)
+            return Selection.model_validate(out) if out else None
         except (ChildFailure, TrialCrashed) as exc:
             self.log(f"honest estimate skipped: {exc}")
-            return {}
+            return None
 
     def affordable(
-        self, candidates: list[dict[str, Any]], board: list[dict[str, Any]]
+        self, candidates: list[dict[str, Any]], board: list[TrialRow]
     ) -> tuple[list[dict[str, Any]], list[str]]:
         """Candidates whose refit fits in the time left, and the ids of library ensembles
         passed over because theirs would not.
@@ -236,7 +238,7 @@ class Finalizer:
         (folds − 1)). A trial refits one pipeline and is always allowed, so the job ends near
         its wall budget with the best candidate it can still afford.
         """
-        rows = {int(r["number"]): r for r in board}
+        rows = {r.number: r for r in board}
         left = self.time_left()
         keep, passed = [], []
         for cand in candidates:
@@ -263,8 +265,8 @@ class Finalizer:
         return min(limits) - time.time()
 
     def commit_empty(self, final: JobState) -> str:
-        rows = self.store.trial_rows(self.job_id)
-        errors = [r.get("error", "") for r in rows if r.get("state") == "failed"]
+        rows = [TrialRow.load(r) for r in self.store.trial_rows(self.job_id)]
+        errors = [r.error or "" for r in rows if r.state == "failed"]
         reason = (
             f"no trial completed ({len(errors)} failed"
             + (f"; last error: {errors[-1][:300]}" if errors else "")
@@ -276,7 +278,7 @@ class Finalizer:
         )
         return "empty" if ok else "duplicate"
 
-    def library_ensembles(self, board: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    def library_ensembles(self, board: list[TrialRow]) -> list[LibraryRecord]:
         """Ensembles over the stored out-of-fold predictions (no fold fits), scored honestly."""
         if self.spec.library_size <= 0 or len(board) < 2:
             return []
@@ -286,13 +288,13 @@ class Finalizer:
                 self.request(families=list(self.spec.family_names)),
                 timeout=max(self.spec.trial_timeout, 300.0),
             )
-            return list(result)
+            return [LibraryRecord.load(doc) for doc in result]
         except (ChildFailure, TrialCrashed) as exc:
             self.log(f"library ensembles skipped: {exc}")
             return []
 
     def candidates(
-        self, board: list[dict[str, Any]], library: list[dict[str, Any]]
+        self, board: list[TrialRow], library: list[LibraryRecord]
     ) -> list[dict[str, Any]]:
         """Complete trials and library ensembles, best first (greater is better).
 
@@ -302,45 +304,45 @@ class Finalizer:
         optimism of picking the best trial (``trial_optimism``, from the library step); the
         reported ``score`` stays the plain CV score.
         """
-        by_number = {int(r["number"]): r for r in board}
+        by_number = {r.number: r for r in board}
         optimism = trial_optimism(library)
         out = [
             {
-                "id": f"t{r['number']}",
+                "id": f"t{r.number}",
                 "kind": "trial",
-                "family": r["family"],
-                "score": float(r["score"]),
-                "rank_score": float(r["score"]) - optimism,
+                "family": r.family,
+                "score": float(r.score or 0.0),
+                "rank_score": float(r.score or 0.0) - optimism,
                 "members": [self.member(r)],
                 "weights": None,
             }
             for r in board
         ]
         for ens in library:
-            members = [by_number[int(n)] for n in ens["members"] if int(n) in by_number]
-            if len(members) != len(ens["members"]):
+            members = [by_number[n] for n in ens.members if n in by_number]
+            if len(members) != len(ens.members):
                 continue
             out.append(
                 {
-                    "id": ens["id"],
+                    "id": ens.id,
                     "kind": "library",
-                    "family": f"library:{ens['method']}",
-                    "score": float(ens["score"]),
-                    "rank_score": float(ens["score"]),
+                    "family": f"library:{ens.method}",
+                    "score": ens.score,
+                    "rank_score": ens.score,
                     "members": [self.member(r) for r in members],
-                    "weights": ens.get("weights"),
-                    "combiner": ens.get("combiner"),
+                    "weights": ens.weights,
+                    "combiner": ens.combiner.model_dump(mode="json") if ens.combiner else None,
                 }
             )
         return sorted(out, key=lambda c: (-c["rank_score"], c["kind"] != "trial", c["id"]))
 
     @staticmethod
-    def member(row: dict[str, Any]) -> dict[str, Any]:
+    def member(row: TrialRow) -> dict[str, Any]:
         return {
-            "number": int(row["number"]),
-            "family": row["family"],
-            "params": row["params"],
-            "fit_info": row.get("fit_info") or [],
+            "number": row.number,
+            "family": row.family,
+            "params": row.params,
+            "fit_info": row.fit_info,
         }
 
     def refit(

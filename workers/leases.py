@@ -22,6 +22,7 @@ from typing import Any
 
 import optuna
 from optuna.trial import FrozenTrial, TrialState
+from tuttiml.service.records import TrialRow
 from tuttiml.workers.context import WorkerContext
 
 log = logging.getLogger(__name__)
@@ -112,17 +113,17 @@ class Reaper:
         self.store.return_ticket(self.job_id)
         self.store.add_failure(self.job_id)
         retries = int(t.user_attrs.get("retries", 0))
-        row = {
-            "number": t.number,
-            "retry_of": t.user_attrs.get("retry_of"),
-            "retries": retries,
-            "family": str(t.params.get("family", "unknown")),
-            "state": "failed",
-            "params": {k: v for k, v in t.params.items() if k != "family"},
-            "error": "lease expired: its worker died or lost Redis",
-            "reaped": True,
-            "finished_at": time.time(),
-        }
+        row = TrialRow(
+            number=t.number,
+            retry_of=t.user_attrs.get("retry_of"),
+            retries=retries,
+            family=str(t.params.get("family", "unknown")),
+            state="failed",
+            params={k: v for k, v in t.params.items() if k != "family"},
+            error="lease expired: its worker died or lost Redis",
+            reaped=True,
+            finished_at=time.time(),
+        )
         self.store.record_trial(self.job_id, row)
         line = f"trial {t.number} reaped (lease expired)"
         log.info("job %s %s", self.job_id, line)

@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 import optuna
 from optuna.trial import TrialState
-from tuttiml.service.records import TableSummary
+from tuttiml.service.records import TableSummary, TrialRow
 from tuttiml.service.spec import SearchSpec
 from tuttiml.service.store import JobState
 from tuttiml.workers.candidates import CALIBRATED_METRICS, calibrations
@@ -259,7 +259,7 @@ class Shard:
             return 0.0
         if now - self._reserve_at >= REFIT_ESTIMATE_EVERY:
             rows = self.store.board(self.job_id, limit=REFIT_ESTIMATE_TOP)
-            need = refit_seconds(rows, self.spec.folds)
+            need = refit_seconds((TrialRow.load(r) for r in rows), self.spec.folds)
             self._reserve, self._reserve_at = REFIT_SAFETY * need, now
         return self._reserve
 
@@ -515,14 +515,17 @@ class Shard:
             if not self._tell(study, trial, row, busy0, values=score):
                 return
             self.store.record_trial(
-                self.job_id, row, oof=oof_bytes(result["oof"]), library_size=self.spec.library_size
+                self.job_id,
+                TrialRow(**row),
+                oof=oof_bytes(result["oof"]),
+                library_size=self.spec.library_size,
             )
             self.log(f"trial {trial.number} {family} complete score={score:.5f}")
         else:
             row.update(state="pruned")
             if not self._tell(study, trial, row, busy0, state=TrialState.PRUNED):
                 return
-            self.store.record_trial(self.job_id, row)
+            self.store.record_trial(self.job_id, TrialRow(**row))
             where = (
                 f"after {len(folds.scores)} folds"
                 if folds.scores or not folds.rung
@@ -574,7 +577,7 @@ class Shard:
         n_fail = self.store.add_failure(self.job_id) if count else self.store.failures(self.job_id)
         retries = int(trial.user_attrs.get("retries", 0))
         row.update(state="failed", error=error[:2000], finished_at=time.time(), retries=retries)
-        self.store.record_trial(self.job_id, row)
+        self.store.record_trial(self.job_id, TrialRow(**row))
         self.log(f"trial {trial.number} failed ({n_fail} so far): {error[:300]}")
         if retry and "family" in row and row.get("params") is not None:
             self._retry(study, trial.number, {"family": row["family"], **row["params"]}, retries)

@@ -18,6 +18,7 @@ from sklearn.pipeline import Pipeline
 from tuttiml.service.connection import connect
 from tuttiml.service.data import parquet_table, table_frame
 from tuttiml.service.keys import Keys
+from tuttiml.service.records import Combiner, LibraryRecord
 from tuttiml.service.spec import Metric, SearchSpec
 from tuttiml.service.store import JobReader
 from tuttiml.workers import combining, ensembling, metrics
@@ -207,7 +208,10 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
 
 
 def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
-    """Library ensembles over the kept out-of-fold predictions (no fold fits), scored honestly."""
+    """Library ensembles over the kept out-of-fold predictions (no fold fits), scored honestly.
+
+    Each is a ``LibraryRecord`` dump (the worker stores them in the job's result).
+    """
     from tuttiml.workers.library import build_library_ensembles
 
     entry = cache.get(request)
@@ -229,28 +233,25 @@ def library(request: dict[str, Any], cache: DataCache) -> list[dict[str, Any]]:
     ):
         doc = ens.to_json()
         if ens.method == "selection":
-            combiner = {"mode": "average", "weights": doc["weights"]}
+            combiner = Combiner(mode="average", weights=doc["weights"])
         elif data.task == "regression":  # non-negative least squares weights, no intercept
-            combiner = {"mode": "linear", "coef": doc["weights"], "intercept": 0.0}
+            combiner = Combiner(mode="linear", coef=doc["weights"], intercept=0.0)
         else:
-            combiner = {
-                "mode": "logistic",
-                "coef": doc["meta_coef"],
-                "intercept": doc["meta_intercept"],
-            }
-        out.append(
-            {
-                "id": f"library-{ens.method}",
-                "method": ens.method,
-                "members": doc["member_trial_ids"],
-                "weights": doc["weights"],
-                "score": doc["honest_mean"],
-                "score_std": doc["honest_std"],
-                "fold_scores": doc["fold_scores"],
-                "in_sample_score": doc["in_sample_score"],
-                "combiner": combiner,
-            }
+            combiner = Combiner(
+                mode="logistic", coef=doc["meta_coef"], intercept=doc["meta_intercept"]
+            )
+        record = LibraryRecord(
+            id=f"library-{ens.method}",
+            method=ens.method,
+            members=doc["member_trial_ids"],
+            weights=doc["weights"],
+            score=doc["honest_mean"],
+            score_std=doc["honest_std"],
+            fold_scores=doc["fold_scores"],
+            in_sample_score=doc["in_sample_score"],
+            combiner=combiner,
         )
+        out.append(record.dump())
     return out
 
 

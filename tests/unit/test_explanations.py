@@ -131,6 +131,7 @@ def test_a_late_finalize_goes_straight_to_the_refit(left: float, expected: bool)
     needs 18 s: 30 s left is enough, 15 s is not (the model is due at the deadline)."""
     import time
 
+    from tuttiml.service.records import TrialRow
     from tuttiml.workers.finalize import LIBRARY_SECONDS, Finalizer
 
     assert LIBRARY_SECONDS == 10.0
@@ -139,7 +140,7 @@ def test_a_late_finalize_goes_straight_to_the_refit(left: float, expected: bool)
     fin.record = {"started_at": time.time() - 100 + left}
     fin.job_id = "j"
     fin.log = lambda line: None  # type: ignore[method-assign]
-    board = [{"number": 0, "score": 0.9, "fit_seconds": 16.0}]
+    board = [TrialRow(number=0, state="complete", family="single", score=0.9, fit_seconds=16.0)]
     assert fin.library_in_time(board) is expected
 
 

@@ -94,15 +94,16 @@ def test_explanations_that_did_not_run_say_so(part: str, anchor: str, data: dict
 
 
 def test_the_old_skipped_leakage_record_reads_as_not_run() -> None:
+    from tuttiml.service.records import FinalResult
     from tuttiml.service.report_data import _explain_gaps, _leakage
 
     # what finalize stored when a short job skipped the checks: an empty list plus "skipped"
     explain = {"leakage": [], "skipped": ["leakage", "significance"], "significance": []}
-    found, why = _leakage({"state": "finished"}, {"explain": explain})
+    found, why = _leakage({"state": "finished"}, FinalResult.load({"explain": explain}))
     assert found is None and "skipped for lack of time" in why
-    found, why = _leakage({"state": "finished"}, {"leakage": {"findings": []}})
+    found, why = _leakage({"state": "finished"}, FinalResult(leakage={"findings": []}))
     assert found == [] and why == ""
-    found, why = _leakage({"state": "finished"}, {"leakage": {"error": "killed"}})
+    found, why = _leakage({"state": "finished"}, FinalResult(leakage={"error": "killed"}))
     assert found is None and why == "killed"
     gaps = _explain_gaps({"state": "finished"}, explain)
     assert gaps == {"significance": "skipped for lack of time"}
@@ -112,3 +113,73 @@ def test_the_old_skipped_leakage_record_reads_as_not_run() -> None:
         "bias_variance",
         "composites",
     }
+
+
+class _StoredRows:
+    def __init__(self, rows: list[dict[str, Any]]) -> None:
+        self.rows = rows
+
+    def trial_rows(self, job_id: str) -> list[dict[str, Any]]:
+        return self.rows
+
+
+class _StoredJob:
+    """A finished log-loss job as the store holds it (rows and result in the stored shape)."""
+
+    id = "j-2"
+
+    def __init__(self, rows: list[dict[str, Any]], result: dict[str, Any]) -> None:
+        self.store = _StoredRows(rows)
+        self._result = result
+
+    def record(self) -> dict[str, Any]:
+        return {"state": "finished", "spec": {"target": "y"}}
+
+    def result(self) -> Any:
+        from tuttiml.service.records import FinalResult
+
+        return FinalResult.load(self._result)
+
+    def leaderboard(self) -> pd.DataFrame:
+        board = pd.DataFrame(
+            [{"rank": 1, "candidate": "t0", "family": "single", "members": "lgbm",
+              "score": 0.31, "score_std": 0.01, "fit_seconds": 1.0, "predict_ms": 2.0,
+              "size_bytes": 10, "exported": True}]
+        )  # fmt: skip
+        board.attrs["metric"] = "log_loss"
+        return board
+
+    def artifact_meta(self) -> dict[str, Any]:
+        raise LookupError("no artifact in this test")
+
+
+def test_the_report_reads_stored_rows_and_result_in_the_natural_sign() -> None:
+    """Log loss is smaller-is-better (common practice), so the stored greater-is-better
+    scores come out negated; the hold-out and Pareto scores are stored natural already."""
+    from tuttiml.service.explanations import pending_record
+    from tuttiml.service.report_data import collect
+
+    rows = [
+        {"number": 0, "family": "single", "state": "complete", "score": -0.31},
+        {"number": 1, "family": "bagging", "state": "failed", "error": "boom"},
+    ]
+    selection = {
+        "estimate": -0.33, "ci_low": -0.36, "ci_high": -0.30, "n_boot": 200,
+        "n_candidates": 1, "winner_cv": -0.31, "optimism": 0.02,
+    }  # fmt: skip
+    explain = {**pending_record("0", 5.0), "state": "done"}
+    explain["parts"]["pareto"] = {"status": "done"}
+    result = {
+        "best": {"id": "t0", "kind": "trial", "family": "single", "score": -0.31},
+        "selection": selection,
+        "holdout_score": 0.34,
+        "explain": explain,
+        "pareto": [{"candidate": "t0", "score": 0.31, "predict_ms": 2.0, "on_front": True}],
+    }
+    data = collect(_StoredJob(rows, result))
+    assert [t["score"] for t in data["trials"]] == [0.31, None]
+    honest = data["honest"]
+    assert (honest["winner_cv"], honest["bbc_estimate"]) == (0.31, 0.33)
+    assert (honest["bbc_low"], honest["bbc_high"]) == (0.30, 0.36)
+    assert honest["holdout"] == 0.34 and data["pareto"][0]["score"] == 0.31
+    assert data["greater_is_better"] is False

@@ -9,6 +9,7 @@ import pytest
 from tuttiml.service.connection import connect
 from tuttiml.service.errors import JobNotFoundError
 from tuttiml.service.keys import Keys
+from tuttiml.service.records import FinalResult, TrialRow, Winner
 from tuttiml.service.store import JobReader, JobState, JobStore
 
 from tests.contracts import StoreContract
@@ -66,11 +67,11 @@ def test_ticket_budget_is_exact_under_concurrency(store: JobStore) -> None:
 def test_library_keeps_best_k_per_family(store: JobStore) -> None:
     job = _job(store)
     for n, score in enumerate([0.5, 0.9, 0.7, 0.8, 0.6]):
-        row = {"number": n, "family": "bagging", "state": "complete", "score": score}
+        row = TrialRow(number=n, family="bagging", state="complete", score=score)
         store.record_trial(job, row, oof=b"x" * 10, library_size=2)
     store.record_trial(
         job,
-        {"number": 9, "family": "boosting", "state": "complete", "score": 0.1},
+        TrialRow(number=9, family="boosting", state="complete", score=0.1),
         oof=b"y",
         library_size=2,
     )
@@ -83,8 +84,8 @@ def test_library_keeps_best_k_per_family(store: JobStore) -> None:
 
 def test_rerecording_a_trial_moves_its_counter(store: JobStore) -> None:
     job = _job(store)
-    store.record_trial(job, {"number": 0, "family": "bagging", "state": "failed"})
-    store.record_trial(job, {"number": 0, "family": "bagging", "state": "complete", "score": 1})
+    store.record_trial(job, TrialRow(number=0, family="bagging", state="failed"))
+    store.record_trial(job, TrialRow(number=0, family="bagging", state="complete", score=1))
     rec = store.job(job)
     assert rec["n_failed"] == "0" and rec["n_complete"] == "1"
 
@@ -128,7 +129,7 @@ def test_delete_job_removes_every_key(store: JobStore) -> None:
     job = _job(store)
     store.record_trial(
         job,
-        {"number": 0, "family": "f", "state": "complete", "score": 1},
+        TrialRow(number=0, family="f", state="complete", score=1),
         oof=b"z",
         library_size=3,
     )
@@ -146,3 +147,21 @@ def test_reader_offers_no_writes(redis_url: str, prefix: str) -> None:
     reader = JobReader(connect(redis_url), Keys(prefix))
     public = {n for n in dir(reader) if not n.startswith("_")}
     assert public == {"job", "get_data", "oof", "library_members"}
+
+
+def test_trial_rows_and_the_result_read_back_as_their_records(store: JobStore) -> None:
+    job = _job(store)
+    row = TrialRow(number=4, family="single", state="complete", score=0.8, fold_scores=[0.8])
+    store.record_trial(job, row, oof=b"o", library_size=1)
+    assert [TrialRow.load(r) for r in store.trial_rows(job)] == [row]
+    assert [TrialRow.load(r) for r in store.board(job)] == [row]
+    # the first search slice writes the leakage findings; finalize's commit must keep them
+    store.set_extra(job, "leakage", {"findings": []})
+    store.transition(job, JobState.RUNNING)
+    store.transition(job, JobState.FINALIZING)
+    final = FinalResult(
+        best=Winner(id="t4", kind="trial", family="single", score=0.8), trial_optimism=0.0
+    )
+    assert store.commit_final(job, "0", artifacts={}, extras=final.dump(), state=JobState.FINISHED)
+    read = FinalResult.load(store.extras(job))
+    assert read.best == final.best and read.leakage == {"findings": []}

@@ -2,27 +2,28 @@
 
 from __future__ import annotations
 
-from typing import Any
-
+from tuttiml.service.records import LibraryRecord, TrialRow
 from tuttiml.workers.finalize import Finalizer
 
 
-def _trial(number: int, score: float) -> dict[str, Any]:
-    return {"number": number, "family": "single", "params": {}, "score": score}
+def _trial(number: int, score: float, fit_seconds: float = 0.0) -> TrialRow:
+    return TrialRow(
+        number=number, state="complete", family="single", score=score, fit_seconds=fit_seconds
+    )
 
 
-def _library(method: str, score: float, members: list[int], optimism: float) -> dict[str, Any]:
-    return {
-        "id": f"library-{method}",
-        "method": method,
-        "members": members,
-        "weights": [1.0 / len(members)] * len(members),
-        "score": score,
-        "trial_optimism": optimism,
-    }
+def _library(method: str, score: float, members: list[int], optimism: float) -> LibraryRecord:
+    return LibraryRecord(
+        id=f"library-{method}",
+        method=method,
+        members=members,
+        weights=[1.0 / len(members)] * len(members),
+        score=score,
+        trial_optimism=optimism,
+    )
 
 
-def _order(board: list[dict[str, Any]], library: list[dict[str, Any]]) -> list[str]:
+def _order(board: list[TrialRow], library: list[LibraryRecord]) -> list[str]:
     finalizer = Finalizer.__new__(Finalizer)  # candidates() reads nothing from the instance
     return [c["id"] for c in finalizer.candidates(board, library)]
 
@@ -63,9 +64,9 @@ def test_a_library_ensemble_whose_refit_would_overrun_the_budget_is_passed_over(
     fin.job_id = "j"
     fin.log = lambda line: None  # type: ignore[method-assign]
     board = [
-        {**_trial(0, 0.90), "fit_seconds": 8.0},
-        {**_trial(1, 0.89), "fit_seconds": 8.0},
-        {**_trial(2, 0.88), "fit_seconds": 48.0},
+        _trial(0, 0.90, fit_seconds=8.0),
+        _trial(1, 0.89, fit_seconds=8.0),
+        _trial(2, 0.88, fit_seconds=48.0),
     ]
     library = [
         _library("meta", 0.95, [0, 1, 2], 0.0),
