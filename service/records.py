@@ -140,6 +140,15 @@ class TrialRow(SparseRecord):
     note: str | None = None
     error: str | None = None
 
+    def ranked_score(self) -> float:
+        """The score of a row on the board; a row without one is a bug and is said loudly."""
+        if self.score is None:
+            raise ValueError(
+                f"trial {self.number} ({self.state}) has no score: only complete, scored "
+                "trials belong on the leaderboard"
+            )
+        return float(self.score)
+
 
 # ---------------------------------------------------------------------------- library
 

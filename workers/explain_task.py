@@ -127,7 +127,7 @@ class Explainer:
             "families": list(self.spec.family_names),
             "top": top,
             "library": [ens.dump() for ens in library],
-            "scores": {str(r.number): float(r.score or 0.0) for r in board},
+            "scores": {str(r.number): r.ranked_score() for r in board},
             "dropped": self.fin.record.get("dropped") or {},
         }
         doc: dict[str, Any] = {
@@ -228,7 +228,7 @@ class Explainer:
         t = time.monotonic()
         end = t + seconds
         points = [
-            {"id": f"t{r.number}", "score": float(r.score or 0.0), "predict_ms": r.predict_ms}
+            {"id": f"t{r.number}", "score": r.ranked_score(), "predict_ms": r.predict_ms}
             for r in board
         ]
         front = set(pareto_front(points))

@@ -311,8 +311,8 @@ class Finalizer:
                 "id": f"t{r.number}",
                 "kind": "trial",
                 "family": r.family,
-                "score": float(r.score or 0.0),
-                "rank_score": float(r.score or 0.0) - optimism,
+                "score": r.ranked_score(),
+                "rank_score": r.ranked_score() - optimism,
                 "members": [self.member(r)],
                 "weights": None,
             }

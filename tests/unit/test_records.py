@@ -146,6 +146,9 @@ def test_a_failed_trial_row_has_no_score_and_stores_none() -> None:
     row = TrialRow(number=3, state="failed", family="single", error="MemoryError")
     assert row.score is None
     assert "score" not in row.dump() and "fold_scores" not in row.dump()
+    with pytest.raises(ValueError, match=r"trial 3 \(failed\) has no score"):
+        row.ranked_score()  # never ranked as 0.0
+    assert TrialRow(**STORED_COMPLETE_ROW).ranked_score() == 0.92
 
 
 def test_a_misspelt_trial_row_field_is_refused() -> None:
