@@ -149,7 +149,7 @@ class Explainer:
             if name == "leakage" and "findings" in (result.leakage or {}):
                 doc["parts"][name] = {"status": PartStatus.DONE.value, "before_search": True}
             elif budget <= 0:
-                self.not_run(doc, name, "explain_seconds is 0")
+                self.not_run(doc, name, self.no_time_reason())
             elif slot < 0.5:
                 self.not_run(doc, name, f"no time left of the {budget:.0f} s budget")
             elif name == "pareto":
@@ -203,6 +203,15 @@ class Explainer:
             self.ctx.trials.request("prepare", self.fin.request(**common), timeout=left)
         except (ChildFailure, TrialCrashed) as exc:
             self.log(f"could not restart the trial process: {exc}")
+
+    def no_time_reason(self) -> str:
+        """Why a budget of 0 s: the spec asked for it, or the workers' bounds gave nothing."""
+        if self.spec.explain_seconds == 0:
+            return "explain_seconds is 0"
+        return (
+            "explain_seconds unset and the workers' bounds give 0 s "
+            "(TUTTI_EXPLAIN_MIN_SECONDS / TUTTI_EXPLAIN_MAX_SECONDS)"
+        )
 
     def not_run(self, doc: dict[str, Any], name: str, reason: str) -> None:
         doc["parts"][name] = {"status": PartStatus.NOT_RUN.value, "reason": reason}
