@@ -22,7 +22,6 @@ from tuttiml.service.explanations import (
     not_run_record,
 )
 from tuttiml.service.records import FinalResult, LibraryRecord, ParetoPoint, TrialRow
-from tuttiml.service.spec import natural
 from tuttiml.service.store import JobState
 from tuttiml.workers.child import ChildFailure, TrialCrashed
 from tuttiml.workers.context import WorkerContext
@@ -262,10 +261,10 @@ class Explainer:
             "refits": refits,
             "refits_skipped_for_time": skipped,
         }
-        return [  # NOTE: stored in the natural sign, as jobs have stored it so far
+        return [
             ParetoPoint(
                 candidate=p["id"],
-                score=natural(self.spec.metric, p["score"]),
+                score=p["score"],
                 predict_ms=p["predict_ms"],
                 on_front=p["id"] in front,
             )

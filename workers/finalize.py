@@ -374,6 +374,8 @@ class Finalizer:
             "fit_seconds": out["fit_seconds"],
             "predict_ms": out["predict_ms"],
             "holdout_score": out["holdout_score"],
+            "score_note": "cv_score and holdout_score are greater-is-better: losses (log "
+            "loss, RMSE, MAE) are negated",
             "decision_threshold": out.get("decision_threshold"),
             "versions": versions(),
             "created_at": time.time(),
