@@ -15,9 +15,10 @@ demo: $(STAMP)
 	$(VENV)/bin/tutti demo
 
 # Two test processes (pytest-xdist): most integration tests wait on leases, sleeps and
-# subprocesses, so two of them share the two cores well. `worksteal` keeps both busy to the
-# end although test durations range from milliseconds to two minutes.
-PYTEST := OMP_NUM_THREADS=1 $(PY) -m pytest -q -p no:cacheprovider -n 2 --dist worksteal
+# subprocesses, so two of them share the two cores well. `loadfile` keeps a module in one
+# process: module fixtures (three messy-table jobs, the attacked store) run once, and tests
+# that read what an earlier test of their module wrote find it.
+PYTEST := OMP_NUM_THREADS=1 $(PY) -m pytest -q -p no:cacheprovider -n 2 --dist loadfile
 
 test: $(STAMP)
 	$(VENV)/bin/ruff check .

@@ -22,6 +22,7 @@ from tuttiml.service.explanations import (
     not_run_record,
 )
 from tuttiml.service.records import FinalResult, LibraryRecord, ParetoPoint, TrialRow
+from tuttiml.service.spec import natural
 from tuttiml.service.store import JobState
 from tuttiml.workers.child import ChildFailure, TrialCrashed
 from tuttiml.workers.context import WorkerContext
@@ -86,6 +87,10 @@ class Explainer:
         if result.selection is None and self.spec.library_size > 0:
             more["selection"] = self.fin.selection()  # finalize had no time for it
         doc, artifacts, pareto = self.explain(budget, result, t0)
+        if result.schema_version < 2 and result.holdout_score is not None:
+            # finalized by version 1 (natural sign): this write stamps version 2, so the
+            # hold-out score is rewritten greater-is-better (the sign flip is its own inverse)
+            more["holdout_score"] = natural(self.spec.metric, result.holdout_score)
         added = FinalResult(pareto=pareto, **more)
         return self.commit(doc, artifacts=artifacts, extras=added.dump())
 
