@@ -14,12 +14,18 @@ $(STAMP): pyproject.toml
 demo: $(STAMP)
 	$(VENV)/bin/tutti demo
 
+# Two test processes (pytest-xdist): most integration tests wait on leases, sleeps and
+# subprocesses, so two of them share the two cores well. `loadfile` keeps a module in one
+# process: module fixtures (three messy-table jobs, the attacked store) run once, and tests
+# that read what an earlier test of their module wrote find it.
+PYTEST := OMP_NUM_THREADS=1 $(PY) -m pytest -q -p no:cacheprovider -n 2 --dist loadfile
+
 test: $(STAMP)
 	$(VENV)/bin/ruff check .
-	OMP_NUM_THREADS=1 $(PY) -m pytest -q -p no:cacheprovider
+	$(PYTEST)
 
 test-fast: $(STAMP)
-	OMP_NUM_THREADS=1 $(PY) -m pytest -q -p no:cacheprovider -m "not slow"
+	$(PYTEST) -m "not slow"
 
 lint: $(STAMP)
 	$(VENV)/bin/ruff check .

@@ -13,6 +13,7 @@ from __future__ import annotations
 from typing import Any, ClassVar, Literal, Self
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator
+from tuttiml.service.spec import Metric, natural
 
 
 class Record(BaseModel):
@@ -37,11 +38,15 @@ class SparseRecord(Record):
 
     A trial row stays without a score when the trial failed, and the job's result hash gets
     its fields from several writers (search, finalize, explanations), so a dump never blanks
-    what another writer stored. ``schema_version`` is always written.
+    what another writer stored. ``schema_version`` is always written: a new record's is the
+    current version, a loaded one keeps the version its data was written in.
     """
 
     def dump(self) -> dict[str, Any]:
-        return {**self.model_dump(mode="json", exclude_unset=True), "schema_version": self.VERSION}
+        return {
+            **self.model_dump(mode="json", exclude_unset=True),
+            "schema_version": self.schema_version,
+        }
 
 
 class Part(BaseModel):
@@ -212,10 +217,8 @@ class Selection(Part):
 
 
 class ParetoPoint(Part):
-    """A trial on the score versus predict-latency plot.
-
-    NOTE: ``score`` is stored in the metric's natural sign (as jobs have stored it so far).
-    """
+    """A trial on the score versus predict-latency plot (``score`` greater-is-better since
+    version 2 of :class:`FinalResult`; version 1 stored it in the natural sign)."""
 
     candidate: str
     score: float
@@ -229,9 +232,16 @@ class FinalResult(SparseRecord):
     Finalize writes the winner, the library, the selection estimate, the hold-out score and
     its timings; the first search slice adds ``leakage``, the search's library refreshes
     ``library``, the explanation task ``pareto``, ``explain`` and a late ``selection``. Each
-    writer stores only the fields it sets. ``holdout_score`` and the Pareto scores are in the
-    metric's natural sign (as stored so far); every other score is greater-is-better.
+    writer stores only the fields it sets.
+
+    Version 2: every score is greater-is-better. Version 1 (results stored before
+    2026-12-02, read without a ``schema_version``) kept ``holdout_score`` and the Pareto
+    scores in the metric's natural sign; :meth:`natural_holdout` and :meth:`natural_pareto`
+    give both versions in the natural sign, for the presentation edge.
     """
+
+    VERSION: ClassVar[int] = 2
+    schema_version: int = 2
 
     library: list[LibraryRecord] = []
     best: Winner | None = None
@@ -251,6 +261,25 @@ class FinalResult(SparseRecord):
     def _no_selection(cls, value: Any) -> Any:
         """``{}`` (stored when there was nothing to pick from) reads as no selection."""
         return None if value == {} else value
+
+    @classmethod
+    def load(cls, data: dict[str, Any]) -> Self:
+        """Validate stored data; data without a ``schema_version`` is version 1."""
+        return cls.model_validate({"schema_version": 1, **data})
+
+    def _natural(self, metric: Metric | str, stored: float | None) -> float | None:
+        return stored if self.schema_version < 2 else natural(metric, stored)
+
+    def natural_holdout(self, metric: Metric | str) -> float | None:
+        """The hold-out score in the metric's natural sign (for display)."""
+        return self._natural(metric, self.holdout_score)
+
+    def natural_pareto(self, metric: Metric | str) -> list[dict[str, Any]]:
+        """The Pareto points with their scores in the metric's natural sign (for display)."""
+        return [
+            {**p.model_dump(mode="json"), "score": self._natural(metric, p.score)}
+            for p in self.pareto
+        ]
 
 
 __all__ = [

@@ -60,7 +60,7 @@ def _explanations(explain: dict[str, Any]) -> dict[str, Any] | None:
 
 def _honest(result: FinalResult, metric: Metric) -> dict[str, Any]:
     honest = _selection(result, metric)
-    holdout = result.holdout_score  # stored in the natural sign (see FinalResult)
+    holdout = result.natural_holdout(metric)
     if holdout is not None:
         honest["holdout"] = holdout
         est = honest.get("bbc_estimate", honest.get("winner_cv"))
@@ -202,7 +202,7 @@ def collect(job: JobView) -> dict[str, Any]:
         "honest": _honest(result, metric),
         "explanations": _explanations(explain),
         "bias_variance": explain.get("bias_variance") or [],
-        "pareto": [p.model_dump(mode="json") for p in result.pareto]
+        "pareto": result.natural_pareto(metric)
         if state_of(explain) is None or ran(explain, "pareto")
         else [],
         "ensembles": (explain.get("ensembles") or []) + (explain.get("composites") or []),

@@ -87,6 +87,10 @@ class Explainer:
         if result.selection is None and self.spec.library_size > 0:
             more["selection"] = self.fin.selection()  # finalize had no time for it
         doc, artifacts, pareto = self.explain(budget, result, t0)
+        if result.schema_version < 2 and result.holdout_score is not None:
+            # finalized by version 1 (natural sign): this write stamps version 2, so the
+            # hold-out score is rewritten greater-is-better (the sign flip is its own inverse)
+            more["holdout_score"] = natural(self.spec.metric, result.holdout_score)
         added = FinalResult(pareto=pareto, **more)
         return self.commit(doc, artifacts=artifacts, extras=added.dump())
 
@@ -149,7 +153,7 @@ class Explainer:
             if name == "leakage" and "findings" in (result.leakage or {}):
                 doc["parts"][name] = {"status": PartStatus.DONE.value, "before_search": True}
             elif budget <= 0:
-                self.not_run(doc, name, "explain_seconds is 0")
+                self.not_run(doc, name, self.no_time_reason())
             elif slot < 0.5:
                 self.not_run(doc, name, f"no time left of the {budget:.0f} s budget")
             elif name == "pareto":
@@ -204,6 +208,15 @@ class Explainer:
         except (ChildFailure, TrialCrashed) as exc:
             self.log(f"could not restart the trial process: {exc}")
 
+    def no_time_reason(self) -> str:
+        """Why a budget of 0 s: the spec asked for it, or the workers' bounds gave nothing."""
+        if self.spec.explain_seconds == 0:
+            return "explain_seconds is 0"
+        return (
+            "explain_seconds unset and the workers' bounds give 0 s "
+            "(TUTTI_EXPLAIN_MIN_SECONDS / TUTTI_EXPLAIN_MAX_SECONDS)"
+        )
+
     def not_run(self, doc: dict[str, Any], name: str, reason: str) -> None:
         doc["parts"][name] = {"status": PartStatus.NOT_RUN.value, "reason": reason}
         doc.setdefault(name, None)
@@ -253,10 +266,10 @@ class Explainer:
             "refits": refits,
             "refits_skipped_for_time": skipped,
         }
-        return [  # NOTE: stored in the natural sign, as jobs have stored it so far
+        return [
             ParetoPoint(
                 candidate=p["id"],
-                score=natural(self.spec.metric, p["score"]),
+                score=p["score"],
                 predict_ms=p["predict_ms"],
                 on_front=p["id"] in front,
             )

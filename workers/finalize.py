@@ -142,7 +142,11 @@ class Finalizer:
                 self.job_id,
                 self.epoch,
                 artifacts={},
-                extras=FinalResult(library=library, refit_errors=errors).dump(),
+                # every field whose sign changed with version 2 is written (or cleared), so
+                # the version this write stamps never covers an earlier version's values
+                extras=FinalResult(
+                    library=library, refit_errors=errors, holdout_score=None, pareto=[]
+                ).dump(),
                 state=JobState.FAILED,
                 reason=reason,
             )
@@ -160,6 +164,7 @@ class Finalizer:
             passed_over_for_time=over_time,
             selection=selection,
             explain=pending_record(self.epoch, budget),
+            pareto=[],  # this epoch's points come with its explanations
         )
         self.phase("saving the result")
         ok = self.store.commit_final(
@@ -374,6 +379,8 @@ class Finalizer:
             "fit_seconds": out["fit_seconds"],
             "predict_ms": out["predict_ms"],
             "holdout_score": out["holdout_score"],
+            "score_note": "cv_score and holdout_score are greater-is-better: losses (log "
+            "loss, RMSE, MAE) are negated",
             "decision_threshold": out.get("decision_threshold"),
             "versions": versions(),
             "created_at": time.time(),

@@ -193,7 +193,7 @@ def refit(request: dict[str, Any], cache: DataCache) -> dict[str, Any]:
             pred = metrics.one_hot(pipe.predict(X_hold), data.classes)
         else:
             pred = metrics.predictions(pipe, X_hold, data.task, data.classes)
-        holdout = metrics.natural_score(Metric(spec.metric), data.y[hold], pred, data.classes)
+        holdout = metrics.score(Metric(spec.metric), data.y[hold], pred, data.classes)
     blob = sio.dumps(exported, compression=zipfile.ZIP_DEFLATED)
     return {
         "blob": blob,

@@ -45,7 +45,7 @@ SECTIONS = (
     "Software versions",
 )
 #: Sections filled by an explanation part: there, or that part listed as not run (the tests'
-#: workers give explanations 3–5 s, which a loaded machine may not cover).
+#: workers give explanations no time unless the spec asks; see tests/conftest.py).
 PART_SECTIONS = {"Score versus prediction speed": "pareto", "Inside the ensembles": "ensembles"}
 RESULT: dict[str, Path] = {}
 

@@ -2,7 +2,11 @@
 
 from __future__ import annotations
 
+import errno
+import os
+import subprocess
 import time
+from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
@@ -51,6 +55,63 @@ def test_doctor_names_a_server_at_its_memory_limit(tmp_path: Path) -> None:
         assert "raise maxmemory" in problems["memory"]
         r.config_set("maxmemory", str(100 * used))
         assert "memory" not in {f.check for f in diagnose(r, server.url) if f.level == PROBLEM}
+    finally:
+        server.kill()
+
+
+@pytest.fixture
+def small_disk(tmp_path: Path) -> Iterator[Path]:
+    """A 2 MiB tmpfs (root only): a disk that the test can fill under the append-only file."""
+    where = tmp_path / "small"
+    where.mkdir()
+    if os.geteuid() != 0:
+        pytest.skip("mounting a small filesystem needs root")
+    run = subprocess.run(
+        ["mount", "-t", "tmpfs", "-o", "size=2m", "tmpfs", str(where)], capture_output=True
+    )
+    if run.returncode != 0:
+        pytest.skip(f"cannot mount a tmpfs here: {run.stderr.decode().strip()}")
+    try:
+        yield where
+    finally:
+        subprocess.run(["umount", "-l", str(where)], capture_output=True)
+
+
+def _fill(path: Path) -> None:
+    """Write to ``path`` until its filesystem has no space left."""
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT)
+    try:
+        while True:
+            os.write(fd, b"x" * 65536)
+    except OSError as exc:
+        assert exc.errno == errno.ENOSPC, exc
+    finally:
+        os.close(fd)
+
+
+def test_doctor_names_a_full_disk_under_the_append_only_file(small_disk: Path) -> None:
+    server = RedisProcess(small_disk).start()
+    try:
+        r = redis.Redis.from_url(server.url)
+        # with fsync "always" Redis exits on a failed AOF write; with "everysec" (the other
+        # setting the doctor accepts) it keeps serving reads and refuses writes (Redis's
+        # documentation of appendfsync, from memory)
+        r.config_set("appendfsync", "everysec")
+        assert "disk" not in {f.check for f in diagnose(r, server.url)}
+        _fill(small_disk / "filler")
+        with pytest.raises(redis.ResponseError, match="MISCONF"):
+            for i in range(100):
+                r.set(f"k{i}", "v" * 1000)
+        problems = {f.check: f.detail for f in diagnose(r, server.url) if f.level == PROBLEM}
+        assert "free space on the server's disk" in problems["disk"]
+        (small_disk / "filler").unlink()
+        deadline = time.monotonic() + 30
+        while time.monotonic() < deadline:  # Redis retries the write about once a second
+            if r.info("persistence")["aof_last_write_status"] == "ok":
+                break
+            time.sleep(0.2)
+        assert "disk" not in {f.check for f in diagnose(r, server.url) if f.level == PROBLEM}
+        r.set("after", "1")  # writes are accepted again
     finally:
         server.kill()
 

@@ -533,3 +533,23 @@ def test_default_trials_run_cheapest_first(task: str) -> None:
         study = optuna.create_study(sampler=optuna.samplers.RandomSampler(seed=1))
         for _ in range(10):
             assert FAMILIES[name].cost(FAMILIES[name].suggest(study.ask(), ctx), ctx) > 0
+
+
+@pytest.mark.parametrize("task", ["binary", "multiclass"])
+@pytest.mark.parametrize("name", [n for n in LEARNERS if n != "lgbm"])
+def test_every_classifier_gives_class_probabilities(task: str, name: str) -> None:
+    """Log loss and ROC AUC score probabilities (common practice), and users call
+    ``predict_proba`` on the export: a hard-label learner once scored a log loss of 0 on folds
+    it happened to get all right, won, and exported a pipeline without it."""
+    from tests.contracts import family_data
+
+    X, y, ctx = family_data(task)
+    if name not in learner_names(ctx):
+        pytest.skip(f"{name} does not support {task}")
+    model = LEARNERS[name].build(LEARNERS[name].defaults(ctx, "s"), ctx, "s").fit(X, y)
+    proba = model.predict_proba(X)  # AttributeError for a hard-label learner
+    assert proba.shape == (len(X), len(np.unique(y)))
+    assert_allclose(proba.sum(axis=1), 1.0)
+    # not one-hot labels in disguise: some rows get a probability strictly between 0 and 1
+    assert ((proba > 1e-6) & (proba < 1 - 1e-6)).any()
+    assert LEARNERS[name].proba

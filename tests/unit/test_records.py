@@ -290,7 +290,22 @@ def test_a_result_round_trips_and_stores_only_what_its_writer_set() -> None:
     result = FinalResult.load(STORED_RESULT)
     assert FinalResult.load(json.loads(json.dumps(result.dump()))) == result
     late = FinalResult(pareto=[], selection=None)  # what the explanation task adds
-    assert late.dump() == {"pareto": [], "selection": None, "schema_version": 1}
+    assert late.dump() == {"pareto": [], "selection": None, "schema_version": 2}
+
+
+def test_hold_out_and_pareto_scores_show_in_the_natural_sign_for_both_versions() -> None:
+    """Version 1 stored them natural, version 2 greater-is-better: the same display."""
+    point = {"candidate": "t7", "predict_ms": 12.5, "on_front": True}
+    old = FinalResult.load({"holdout_score": 0.25, "pareto": [{**point, "score": 0.3}]})
+    new = FinalResult.load(
+        {"holdout_score": -0.25, "pareto": [{**point, "score": -0.3}], "schema_version": 2}
+    )
+    for result in (old, new):  # log loss: smaller is better (common practice)
+        assert result.natural_holdout("log_loss") == 0.25
+        assert result.natural_pareto("log_loss")[0]["score"] == 0.3
+    written = FinalResult(holdout_score=-0.25)  # what finalize writes now
+    assert FinalResult.load(written.dump()).natural_holdout("log_loss") == 0.25
+    assert new.natural_holdout("roc_auc") == -0.25  # greater is better: unchanged
 
 
 def test_a_result_with_an_unknown_field_or_wrong_type_is_refused() -> None:

@@ -155,7 +155,8 @@ class _StoredJob:
 
 def test_the_report_reads_stored_rows_and_result_in_the_natural_sign() -> None:
     """Log loss is smaller-is-better (common practice), so the stored greater-is-better
-    scores come out negated; the hold-out and Pareto scores are stored natural already."""
+    scores come out negated, the hold-out and Pareto scores too (version 2 of the result;
+    version 1 stored those two natural, see test_records)."""
     from tuttiml.service.explanations import pending_record
     from tuttiml.service.report_data import collect
 
@@ -172,9 +173,10 @@ def test_the_report_reads_stored_rows_and_result_in_the_natural_sign() -> None:
     result = {
         "best": {"id": "t0", "kind": "trial", "family": "single", "score": -0.31},
         "selection": selection,
-        "holdout_score": 0.34,
+        "holdout_score": -0.34,
         "explain": explain,
-        "pareto": [{"candidate": "t0", "score": 0.31, "predict_ms": 2.0, "on_front": True}],
+        "pareto": [{"candidate": "t0", "score": -0.31, "predict_ms": 2.0, "on_front": True}],
+        "schema_version": 2,
     }
     data = collect(_StoredJob(rows, result))
     assert [t["score"] for t in data["trials"]] == [0.31, None]

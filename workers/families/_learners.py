@@ -273,15 +273,16 @@ def _linear_svm(v: Params, ctx: FamilyContext) -> Any:
 
 def _svm_rbf(v: Params, ctx: FamilyContext) -> Any:
     if ctx.is_classification:
-        return _cap(
-            SVC(
-                C=v["C"],
-                gamma=v["gamma"],
-                class_weight=_cw(v["class_weight"]),
-                random_state=ctx.random_state,
-            ),
-            ctx,
+        # calibrated so that it has predict_proba: without it a hard-label SVM scored a log
+        # loss of 0 on folds it happened to get all right, won, and exported a pipeline
+        # without predict_proba
+        svm = SVC(
+            C=v["C"],
+            gamma=v["gamma"],
+            class_weight=_cw(v["class_weight"]),
+            random_state=ctx.random_state,
         )
+        return _cap(CalibratedClassifierCV(svm, method="sigmoid", cv=3), ctx)
     return _cap(_scaled_target(SVR(C=v["C"], gamma=v["gamma"], epsilon=v["epsilon"])), ctx)
 
 
@@ -424,8 +425,7 @@ LEARNERS: dict[str, Learner] = {
         _svm_rbf,
         scale=True,
         encoding="onehot",
-        cost=0.4,
-        proba=False,
+        cost=1.0,
     ),
     "mlp": Learner(
         "mlp",
