@@ -128,13 +128,13 @@ class TrialRow(SparseRecord):
     started_at: float | None = None
     finished_at: float | None = None
     score: float | None = None
-    score_std: float = 0.0
+    score_std: float | None = 0.0
     fold_scores: list[float] = []
     rung_score: float | None = None
     members: str = ""
     size_bytes: int | None = None
-    fit_seconds: float = 0.0
-    predict_ms: float = 0.0
+    fit_seconds: float | None = 0.0
+    predict_ms: float | None = 0.0
     fit_info: list[dict[str, int]] = []
     cost: float | None = None
     seconds: float | None = None
@@ -180,7 +180,7 @@ class LibraryRecord(Record):
     members: list[int]
     weights: list[float] | None = None
     score: float
-    score_std: float = 0.0
+    score_std: float | None = 0.0
     fold_scores: list[float] = []
     in_sample_score: float | None = None
     combiner: Combiner | None = None

@@ -243,6 +243,7 @@ class Explainer:
         points = [
             {"id": f"t{r.number}", "score": r.ranked_score(), "predict_ms": r.predict_ms}
             for r in board
+            if r.predict_ms is not None  # not measured (non-finite): no place on the plot
         ]
         front = set(pareto_front(points))
         by_id = {c["id"]: c for c in candidates}

@@ -56,7 +56,7 @@ def refit_seconds(rows: Iterable[TrialRow], folds: int) -> float:
     A trial's ``fit_seconds`` sums its fold fits, each on (folds − 1)/folds of the rows, so
     one all-rows refit is about that sum ÷ (folds − 1).
     """
-    return sum(r.fit_seconds for r in rows) / max(folds - 1, 1)
+    return sum(r.fit_seconds or 0.0 for r in rows) / max(folds - 1, 1)
 
 
 def explain_timeout(budget: float, spec: SearchSpec) -> float:

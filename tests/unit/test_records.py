@@ -151,6 +151,16 @@ def test_a_failed_trial_row_has_no_score_and_stores_none() -> None:
     assert TrialRow(**STORED_COMPLETE_ROW).ranked_score() == 0.92
 
 
+def test_a_trial_pruned_at_the_row_rung_stores_no_timings() -> None:
+    """A rung-pruned trial was never timed on all rows: its timings are stored as null."""
+    row = TrialRow.load(
+        {"number": 5, "state": "pruned", "family": "single", "rung_score": 0.9,
+         "fit_seconds": None, "predict_ms": None, "score_std": None}
+    )  # fmt: skip
+    assert row.predict_ms is None and row.fit_seconds is None
+    assert TrialRow.load(row.dump()) == row
+
+
 def test_a_misspelt_trial_row_field_is_refused() -> None:
     with pytest.raises(ValidationError, match="scroe"):
         TrialRow(**{**STORED_COMPLETE_ROW, "scroe": 0.9})
