@@ -10,7 +10,7 @@ them at the presentation edge only.
 
 from __future__ import annotations
 
-from typing import Any, ClassVar, Literal, Self
+from typing import Any, Literal, Self
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator
 from tuttiml.service.spec import Metric, natural
@@ -20,7 +20,6 @@ class Record(BaseModel):
     """Base of every stored record: frozen, unknown fields refused, versioned."""
 
     model_config = ConfigDict(frozen=True, extra="forbid")
-    VERSION: ClassVar[int] = 1
     schema_version: int = 1
 
     def dump(self) -> dict[str, Any]:
@@ -240,7 +239,6 @@ class FinalResult(SparseRecord):
     give both versions in the natural sign, for the presentation edge.
     """
 
-    VERSION: ClassVar[int] = 2
     schema_version: int = 2
 
     library: list[LibraryRecord] = []
